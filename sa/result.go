@@ -1,0 +1,36 @@
+package sa
+
+// Result is the outcome of a run. It is filled in on every return, also
+// when an error is returned: X is then the last iterate that was accepted
+// (never a non-finite one).
+type Result struct {
+	// X is the last iterate x_n.
+	X []float64
+	// Average is the Polyak–Ruppert average of x_{BurnIn+1}, …, x_n, or nil
+	// when no iterate has been averaged yet (Steps ≤ BurnIn).
+	Average []float64
+	// Averaged is the number of iterates in Average.
+	Averaged int
+	// Steps is the number of updates applied.
+	Steps int
+	// Measurements is the number of underlying measurements used, including
+	// those of a step that failed.
+	Measurements int
+	// Active reports whether the projection moved the last iterate, i.e.
+	// the constraint was active at the end.
+	Active bool
+	// Reason says why the run stopped.
+	Reason Reason
+	// Seed is the seed the run used; Settings holds the resolved settings.
+	Seed     uint64
+	Settings Settings
+}
+
+// Estimate returns Average when it exists and X otherwise: the estimate to
+// report for a decreasing gain with averaging.
+func (r *Result) Estimate() []float64 {
+	if r.Average != nil {
+		return r.Average
+	}
+	return r.X
+}

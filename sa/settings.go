@@ -1,0 +1,87 @@
+package sa
+
+import (
+	"math"
+
+	"github.com/stochroot/stochroot/schedule"
+)
+
+// NoLimit switches off a budget in Settings (MaxSteps).
+const NoLimit = -1
+
+// DefaultMaxSteps is the step budget used when Settings.MaxSteps is 0.
+const DefaultMaxSteps = 10000
+
+// Settings configures a pull-style run. The zero value of every field except
+// Gain is a sensible default, stated in the field's comment. The drivers
+// never write to the caller's Settings; Result.Settings holds the resolved
+// copy.
+type Settings struct {
+	// Gain is the gain sequence a_k. It is required: the right scale depends
+	// on the problem (roughly 1/slope of the field near the root for the
+	// harmonic gain). schedule.Power{Scale: a, Exponent: 0.7} with averaging
+	// is a robust start.
+	Gain schedule.Schedule
+
+	// MaxSteps is the step budget. 0 means DefaultMaxSteps; NoLimit means no
+	// step budget (another stop rule or the context must end the run).
+	MaxSteps int
+
+	// MaxMeasurements is the budget of underlying measurements (see
+	// oracle.Counted). 0 means no measurement budget. A run stops before a
+	// step that would exceed it.
+	MaxMeasurements int
+
+	// BurnIn is the number of iterates left out of the Polyak–Ruppert
+	// average: the average is taken over x_{BurnIn+1}, …, x_n. 0 averages
+	// every iterate after the first step.
+	BurnIn int
+
+	// Projection, if not nil, is applied after every update. Box is
+	// provided.
+	Projection Projection
+
+	// MaxAbs, if > 0, stops the run with ErrDiverged when an update would
+	// give a coordinate with |x_i| > MaxAbs. 0 checks only for non-finite
+	// iterates.
+	MaxAbs float64
+
+	// Seed is the one seed of the run; every random stream is derived from
+	// it (see the package documentation). The same seed gives the same
+	// result bit for bit. Zero is a valid seed.
+	Seed uint64
+}
+
+// resolve validates s for dimension d and returns the copy with defaults
+// filled in.
+func (s Settings) resolve(d int) (Settings, error) {
+	if s.Gain == nil {
+		return s, settingsErr("Settings.Gain is nil: a gain schedule is required, for example schedule.Power{Scale: 1, Exponent: 0.7}")
+	}
+	if v, ok := s.Gain.(schedule.Validator); ok {
+		if err := v.Validate(); err != nil {
+			return s, settingsErr("Settings.Gain: %v", err)
+		}
+	}
+	switch {
+	case s.MaxSteps == 0:
+		s.MaxSteps = DefaultMaxSteps
+	case s.MaxSteps < 0 && s.MaxSteps != NoLimit:
+		return s, settingsErr("Settings.MaxSteps = %d: must be ≥ 0 or NoLimit", s.MaxSteps)
+	}
+	if s.MaxMeasurements < 0 {
+		return s, settingsErr("Settings.MaxMeasurements = %d: must be ≥ 0 (0 means no budget)", s.MaxMeasurements)
+	}
+	if s.BurnIn < 0 {
+		return s, settingsErr("Settings.BurnIn = %d: must be ≥ 0", s.BurnIn)
+	}
+	if !(s.MaxAbs >= 0) || math.IsInf(s.MaxAbs, 0) {
+		return s, settingsErr("Settings.MaxAbs = %v: must be finite and ≥ 0", s.MaxAbs)
+	}
+	if v, ok := s.Projection.(validator); ok {
+		if err := v.validate(d); err != nil {
+			return s, err
+		}
+	}
+	return s, nil
+}

@@ -1,0 +1,183 @@
+// Package sampling draws indices of the items of a finite sum for
+// stochastic-gradient methods: with replacement ([Uniform]), without
+// replacement in a fresh random order each epoch ([Shuffled]), and in
+// sequential full passes ([Sequential]).
+//
+// Every sampler fills a caller-owned batch and allocates nothing per batch.
+// Randomness comes from the *rand.Rand passed to Fill, so that a driver can
+// derive it from its one seed and a run reproduces bit for bit; the sampler
+// itself holds only its position (and, for Shuffled, the current order).
+//
+// # Epochs
+//
+// An epoch is one pass over the n items. Epoch reports the number of
+// completed epochs: for Shuffled and Sequential the number of times the last
+// position of a pass was handed out; for Uniform, which has no passes, the
+// number of draws divided by n (rounded down), i.e. epoch-equivalents of
+// work.
+//
+// # Concurrency
+//
+// A sampler is not safe for concurrent use.
+package sampling
+
+import (
+	"fmt"
+	"math/rand/v2"
+)
+
+// Sampler is implemented by the samplers of this package. Fill writes
+// len(dst) indices in [0, Len()) into dst, drawing any randomness from rng.
+type Sampler interface {
+	Fill(dst []int, rng *rand.Rand)
+	// Len returns the number of items n.
+	Len() int
+	// Epoch returns the number of completed epochs.
+	Epoch() int
+	// Reset returns the sampler to its state right after construction.
+	Reset()
+}
+
+func checkN(n int) {
+	if n < 1 {
+		panic(fmt.Sprintf("sampling: number of items n = %d, must be ≥ 1", n))
+	}
+}
+
+// Uniform draws indices independently and uniformly from [0, n): sampling
+// with replacement, so a batch may repeat an item and miss others.
+type Uniform struct {
+	n     int
+	draws int
+}
+
+// NewUniform returns a with-replacement sampler over n items. It panics if
+// n < 1.
+func NewUniform(n int) *Uniform {
+	checkN(n)
+	return &Uniform{n: n}
+}
+
+// Fill writes len(dst) independent uniform indices into dst.
+func (s *Uniform) Fill(dst []int, rng *rand.Rand) {
+	for i := range dst {
+		dst[i] = rng.IntN(s.n)
+	}
+	s.draws += len(dst)
+}
+
+// Len returns n.
+func (s *Uniform) Len() int { return s.n }
+
+// Epoch returns the number of draws so far divided by n, rounded down.
+func (s *Uniform) Epoch() int { return s.draws / s.n }
+
+// Reset sets the draw count to zero.
+func (s *Uniform) Reset() { s.draws = 0 }
+
+// Shuffled draws without replacement: it hands out the items in a random
+// order and, when all n have been handed out (one epoch), draws a fresh
+// random order (Fisher–Yates shuffle) for the next epoch.
+//
+// A batch that crosses an epoch boundary is filled with the remaining items
+// of the current epoch followed by the first items of the next one, so every
+// epoch still hands out each item exactly once, and such a batch may contain
+// an item twice (once from each epoch). Batches of size n that start at an
+// epoch boundary are exactly the n items once each.
+type Shuffled struct {
+	order []int
+	pos   int
+	epoch int
+	fresh bool
+}
+
+// NewShuffled returns a without-replacement sampler over n items. It panics
+// if n < 1. It allocates the order of n ints once.
+func NewShuffled(n int) *Shuffled {
+	checkN(n)
+	s := &Shuffled{order: make([]int, n)}
+	s.Reset()
+	return s
+}
+
+// Fill writes the next len(dst) items of the current random order into dst,
+// starting a new epoch with a new order where needed.
+func (s *Shuffled) Fill(dst []int, rng *rand.Rand) {
+	for i := range dst {
+		if s.fresh || s.pos == len(s.order) {
+			s.shuffle(rng)
+		}
+		dst[i] = s.order[s.pos]
+		s.pos++
+		if s.pos == len(s.order) {
+			s.epoch++
+		}
+	}
+}
+
+// shuffle draws a fresh order with the Fisher–Yates shuffle.
+func (s *Shuffled) shuffle(rng *rand.Rand) {
+	o := s.order
+	for i := len(o) - 1; i > 0; i-- {
+		j := rng.IntN(i + 1)
+		o[i], o[j] = o[j], o[i]
+	}
+	s.pos = 0
+	s.fresh = false
+}
+
+// Len returns n.
+func (s *Shuffled) Len() int { return len(s.order) }
+
+// Epoch returns the number of completed passes.
+func (s *Shuffled) Epoch() int { return s.epoch }
+
+// Reset restores the identity order and position 0 and forgets the epochs;
+// the next Fill starts with a fresh shuffle.
+func (s *Shuffled) Reset() {
+	for i := range s.order {
+		s.order[i] = i
+	}
+	s.pos, s.epoch, s.fresh = 0, 0, true
+}
+
+// Sequential hands out 0, 1, …, n−1, 0, 1, … in order; it uses no
+// randomness. Batches of size n starting at position 0 are full passes.
+type Sequential struct {
+	n, pos, epoch int
+}
+
+// NewSequential returns a sequential sampler over n items. It panics if
+// n < 1.
+func NewSequential(n int) *Sequential {
+	checkN(n)
+	return &Sequential{n: n}
+}
+
+// Fill writes the next len(dst) positions, wrapping around after n−1. rng is
+// not used and may be nil.
+func (s *Sequential) Fill(dst []int, _ *rand.Rand) {
+	for i := range dst {
+		dst[i] = s.pos
+		s.pos++
+		if s.pos == s.n {
+			s.pos = 0
+			s.epoch++
+		}
+	}
+}
+
+// Len returns n.
+func (s *Sequential) Len() int { return s.n }
+
+// Epoch returns the number of completed passes.
+func (s *Sequential) Epoch() int { return s.epoch }
+
+// Reset returns to position 0 and forgets the epochs.
+func (s *Sequential) Reset() { s.pos, s.epoch = 0, 0 }
+
+var (
+	_ Sampler = (*Uniform)(nil)
+	_ Sampler = (*Shuffled)(nil)
+	_ Sampler = (*Sequential)(nil)
+)
