@@ -3,6 +3,7 @@ package sa
 import (
 	"context"
 	"fmt"
+	"math"
 	"math/rand/v2"
 
 	"github.com/stochroot/stochroot/oracle"
@@ -37,35 +38,111 @@ const (
 // x0 is copied and never modified. The oracle receives the stream
 // rand.NewPCG(s.Seed, streamMeasure) and must not modify or retain x.
 func RobbinsMonro(ctx context.Context, h oracle.Field, x0 []float64, s Settings) (Result, error) {
-	r := Result{X: append([]float64(nil), x0...), Seed: s.Seed, Settings: s}
+	sv, err := NewSolver(h, x0, s)
+	if err != nil {
+		return sv.Result(), err
+	}
+	return sv.Run(ctx)
+}
+
+// Solver is a Robbins–Monro run that the caller may drive one step at a
+// time ([Solver.Step]) or run to a stop rule ([Solver.Run]); RobbinsMonro is
+// NewSolver followed by Run. A Solver owns its buffers: Step allocates
+// nothing. It is not safe for concurrent use.
+type Solver struct {
+	c       *core
+	h       oracle.Field
+	rng     *rand.Rand
+	y       []float64
+	perCall int
+	r       Result
+}
+
+// NewSolver validates its input and prepares a run from x0 (copied). On
+// error the returned Solver cannot step, but its Result holds x0, the seed
+// and the settings as given.
+func NewSolver(h oracle.Field, x0 []float64, s Settings) (*Solver, error) {
+	sv := &Solver{r: Result{X: append([]float64(nil), x0...), Seed: s.Seed, Settings: s}}
 	d := len(x0)
 	if h == nil {
-		return r, ErrNilOracle
+		return sv, ErrNilOracle
 	}
 	if d == 0 {
-		return r, fmt.Errorf("%w: starting point has dimension 0", ErrDimension)
+		return sv, fmt.Errorf("%w: starting point has dimension 0", ErrDimension)
 	}
 	if od, ok := h.(oracle.Dimensioned); ok && od.Dim() != d {
-		return r, fmt.Errorf("%w: oracle has dimension %d, starting point %d", ErrDimension, od.Dim(), d)
+		return sv, fmt.Errorf("%w: oracle has dimension %d, starting point %d", ErrDimension, od.Dim(), d)
+	}
+	for i, v := range x0 {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return sv, fmt.Errorf("%w: starting point x0[%d] = %v is not finite", ErrSettings, i, v)
+		}
 	}
 	rs, err := s.resolve(d)
 	if err != nil {
-		return r, err
+		return sv, err
 	}
-	r.Settings = rs
-	if rs.MaxSteps == NoLimit && rs.MaxMeasurements == 0 && ctx.Done() == nil {
-		return r, settingsErr("Settings.MaxSteps is NoLimit with no measurement budget and a context that is never cancelled: the run would never stop")
-	}
-	perCall := 1
+	sv.r.Settings = rs
+	sv.perCall = 1
 	if c, ok := h.(oracle.Counted); ok {
-		perCall = c.MeasurementsPerCall()
+		sv.perCall = c.MeasurementsPerCall()
 	}
-	c := newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs)
-	rng := rand.New(rand.NewPCG(rs.Seed, streamMeasure))
-	y := make([]float64, d)
-	err = runPull(ctx, c, h, y, rng, perCall, &r)
-	c.fill(&r)
-	return r, err
+	sv.h = h
+	sv.c = newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs)
+	sv.rng = rand.New(rand.NewPCG(rs.Seed, streamMeasure))
+	sv.y = make([]float64, d)
+	return sv, nil
+}
+
+// Run steps until a stop rule of the settings fires, ctx is cancelled, or a
+// step fails, and returns the Result (see RobbinsMonro). Budgets count from
+// the start of the Solver, including steps taken with Step.
+func (sv *Solver) Run(ctx context.Context) (Result, error) {
+	if sv.c == nil {
+		return sv.Result(), fmt.Errorf("%w: the solver was not constructed successfully", ErrSettings)
+	}
+	rs := sv.r.Settings
+	if rs.MaxSteps == NoLimit && rs.MaxMeasurements == 0 && ctx.Done() == nil {
+		return sv.Result(), settingsErr("Settings.MaxSteps is NoLimit with no measurement budget and a context that is never cancelled: the run would never stop")
+	}
+	err := runPull(ctx, sv.c, sv.h, sv.y, sv.rng, sv.perCall, &sv.r)
+	return sv.Result(), err
+}
+
+// Step takes one measurement at the current iterate and applies the update,
+// ignoring the budgets. On error the iterate is unchanged.
+func (sv *Solver) Step() error {
+	if sv.c == nil {
+		return fmt.Errorf("%w: the solver was not constructed successfully", ErrSettings)
+	}
+	err := sv.h.Measure(sv.y, sv.c.x, sv.rng)
+	sv.r.Measurements += sv.perCall
+	if err != nil {
+		return &StepError{Step: sv.c.steps, Err: fmt.Errorf("measurement: %w", err)}
+	}
+	return sv.c.step(sv.y)
+}
+
+// X returns the current iterate. The slice is owned by the Solver and is
+// valid only until the next Step or Run; copy it to keep it.
+func (sv *Solver) X() []float64 {
+	if sv.c == nil {
+		return sv.r.X
+	}
+	return sv.c.x
+}
+
+// Result returns the state so far as a Result with freshly allocated
+// slices.
+func (sv *Solver) Result() Result {
+	r := sv.r
+	r.X, r.Average = nil, nil
+	if sv.c == nil {
+		r.X = append([]float64(nil), sv.r.X...)
+		return r
+	}
+	sv.c.fill(&r)
+	return r
 }
 
 // runPull is the pull loop shared by the drivers: check the stop rules,
