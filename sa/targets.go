@@ -27,8 +27,15 @@ import (
 // events and a stationary standard deviation of about
 // √(a·P(1−P)/(2·f(q))) (the derivation is beside TestReferenceQuantileConstantGain).
 // Each event moves θ by a·(1−P) down (event at or below θ) or a·P up
-// (above), so for P = 0.99 a miss moves it 99 times as far as a hit: bound
-// the step with TunerSettings.MaxChange and θ with a Box. A decreasing gain
+// (above). Where the density falls at the quantile (f′(q) < 0, the usual
+// latency tail), the second-order term of the same derivation,
+// f·E[e] + f′·E[e²]/2 ≈ 0, puts the constant-gain iterate above q on
+// average by about |f′(q)|/(2f(q))·V, V the stationary variance: a smaller
+// gain sits closer but follows drift more slowly. For P = 0.99 a miss
+// moves θ 99 times as far as a hit: bound the step with
+// TunerSettings.MaxChange and θ with a Box.
+//
+// A decreasing gain
 // a_k = c/(k+1+A)^α, α in (1/2, 1), with the Polyak–Ruppert average
 // (Tuner.Average) estimates a fixed quantile with the variance
 // P(1−P)/(n·f(q)²) of the sample quantile, without storing the events.

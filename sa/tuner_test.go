@@ -3,6 +3,7 @@ package sa
 import (
 	"bytes"
 	"errors"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"strings"
@@ -506,11 +507,22 @@ func TestTunerRace(t *testing.T) {
 		readers = 4
 		p       = 0.9
 	)
+	var (
+		hooked, lastHooked uint64
+		hookErr            error
+	)
 	tu := mustTuner(t, []float64{0.5}, TunerSettings{
 		Gain:       schedule.Constant(0.01),
 		Projection: box1(0, 1),
 		MaxChange:  []float64{0.05},
 		MaxLag:     2,
+		OnUpdate: func(u Update) { // runs under the update lock: plain variables are safe
+			if u.Version != lastHooked+1 {
+				hookErr = fmt.Errorf("hook saw version %d after %d", u.Version, lastHooked)
+			}
+			lastHooked = u.Version
+			hooked++
+		},
 	})
 	start := time.Now()
 	var sent, applied, dropped atomic.Uint64
@@ -603,6 +615,9 @@ func TestTunerRace(t *testing.T) {
 	}
 	if st.Version != st.Applied+st.Overrides {
 		t.Fatalf("version %d != applied %d + overrides %d", st.Version, st.Applied, st.Overrides)
+	}
+	if hookErr != nil || hooked != st.Applied+st.Overrides {
+		t.Fatalf("hook: %v; called %d times for %d updates and %d overrides", hookErr, hooked, st.Applied, st.Overrides)
 	}
 	t.Logf("%d reports from %d goroutines in %v: applied %d, stale %d, frozen %d, overrides %d",
 		total, writers, time.Since(start), st.Applied, st.Stale, st.Frozen, st.Overrides)

@@ -1,0 +1,136 @@
+package sa
+
+import (
+	"runtime"
+	"sync"
+	"sync/atomic"
+	"testing"
+
+	"github.com/stochroot/stochroot/schedule"
+)
+
+// Benchmarks of the push tuner. Each has a hand-written baseline in the
+// same run: an atomic load of one float64 for reads, and a mutex-guarded
+// scalar update x −= a·y for reports, so the ratio shows the tuner's cost
+// over the least a concurrent tuner must do.
+
+var sinkF float64
+
+func benchTuner(b *testing.B) *Tuner {
+	tu, err := NewTuner([]float64{0.5}, TunerSettings{
+		Gain: schedule.Constant(1e-6), Projection: box1(0, 1), MaxChange: []float64{0.1}, MaxLag: 1 << 30,
+	})
+	if err != nil {
+		b.Fatal(err)
+	}
+	return tu
+}
+
+func BenchmarkTunerRead(b *testing.B) {
+	b.Run("baseline=atomic.Uint64", func(b *testing.B) {
+		var u atomic.Uint64
+		b.ReportAllocs()
+		for b.Loop() {
+			sinkF += float64(u.Load())
+		}
+	})
+	b.Run("Param1", func(b *testing.B) {
+		tu := benchTuner(b)
+		b.ReportAllocs()
+		for b.Loop() {
+			x, _ := tu.Param1()
+			sinkF += x
+		}
+	})
+	b.Run("Param1/parallel-while-reporting", func(b *testing.B) {
+		tu := benchTuner(b)
+		stop := make(chan struct{})
+		var wg sync.WaitGroup
+		wg.Add(1)
+		go func() { // one writer keeps publishing
+			defer wg.Done()
+			for {
+				select {
+				case <-stop:
+					return
+				default:
+				}
+				_, v := tu.Param1()
+				tu.Report1(v, 0.1)
+				tu.Report1(v, -0.1)
+			}
+		}()
+		b.ReportAllocs()
+		b.RunParallel(func(pb *testing.PB) {
+			s := 0.0
+			for pb.Next() {
+				x, _ := tu.Param1()
+				s += x
+			}
+			_ = s
+		})
+		close(stop)
+		wg.Wait()
+	})
+}
+
+type mutexScalar struct {
+	mu sync.Mutex
+	x  float64
+}
+
+func (m *mutexScalar) update(a, y float64) {
+	m.mu.Lock()
+	m.x -= a * y
+	m.mu.Unlock()
+}
+
+func BenchmarkTunerReport(b *testing.B) {
+	for _, g := range []int{1, 8} {
+		b.Run(name("baseline=mutex-scalar", g), func(b *testing.B) {
+			var m mutexScalar
+			b.ReportAllocs()
+			if g == 1 {
+				for b.Loop() {
+					m.update(1e-6, 0.1)
+				}
+				return
+			}
+			b.SetParallelism(max(1, g/runtime.GOMAXPROCS(0)))
+			b.RunParallel(func(pb *testing.PB) {
+				for pb.Next() {
+					m.update(1e-6, 0.1)
+				}
+			})
+		})
+		b.Run(name("Param1+Report1", g), func(b *testing.B) {
+			tu := benchTuner(b)
+			b.ReportAllocs()
+			if g == 1 {
+				y := 0.1
+				for b.Loop() {
+					_, v := tu.Param1()
+					tu.Report1(v, y)
+					y = -y
+				}
+				return
+			}
+			b.SetParallelism(max(1, g/runtime.GOMAXPROCS(0)))
+			b.RunParallel(func(pb *testing.PB) {
+				y := 0.1
+				for pb.Next() {
+					_, v := tu.Param1()
+					tu.Report1(v, y)
+					y = -y
+				}
+			})
+		})
+	}
+}
+
+func name(s string, g int) string {
+	if g == 1 {
+		return s + "/goroutines=1"
+	}
+	return s + "/goroutines=8" // with GOMAXPROCS ≤ 8 dividing 8
+}
