@@ -70,5 +70,5 @@ func ExampleTuner_Snapshot() {
 	fmt.Printf("restored: %.4g (version %d), frozen %v\n", x, v, u.IsFrozen())
 	// Output:
 	// after one report: 7 (version 1)
-	// restored: 16 (version 3), frozen true
+	// restored: 16 (version 1), frozen true
 }

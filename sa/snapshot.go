@@ -29,7 +29,6 @@ type snapshot struct {
 	Active    *bool          `json:"active"`
 	Limited   *bool          `json:"limited"`
 	Frozen    *bool          `json:"frozen"`
-	Barrier   *uint64        `json:"barrier"`
 	Counts    *snapshotCount `json:"counts"`
 }
 
@@ -46,7 +45,7 @@ type snapshotCount struct {
 }
 
 // Snapshot returns the whole state of the tuner as JSON: format version,
-// dimension, published version, parameter, Polyak–Ruppert average, step
+// dimension, published version (for logs), parameter, Polyak–Ruppert average, step
 // counter and gain index (and the last measurement of an adaptive gain),
 // the frozen flag and the counters. Settings are not part of it: they come
 // from the code that builds the tuner. A tuner built with the same settings
@@ -55,13 +54,13 @@ func (t *Tuner) Snapshot() ([]byte, error) {
 	t.mu.Lock()
 	st := t.c.state()
 	format, dim := SnapshotFormat, t.d
-	version, barrier, frozen := t.version, t.barrier, t.frozen
+	version, frozen := t.version, t.frozen
 	s := t.stats
 	t.mu.Unlock()
 	return json.Marshal(snapshot{
 		Format: &format, Dim: &dim, Version: &version,
 		X: st.X, Average: st.Average, Averaged: &st.NAvg, Steps: &st.Steps, GainIndex: &st.GainIdx,
-		PrevY: st.Prev, Active: &st.Active, Limited: &st.Limited, Frozen: &frozen, Barrier: &barrier,
+		PrevY: st.Prev, Active: &st.Active, Limited: &st.Limited, Frozen: &frozen,
 		Counts: &snapshotCount{
 			Applied: s.Applied, Stale: s.Stale, Frozen: s.Frozen, NotFinite: s.NotFinite,
 			Future: s.Future, Failed: s.Failed, AfterClose: s.AfterClose,
@@ -72,9 +71,11 @@ func (t *Tuner) Snapshot() ([]byte, error) {
 
 // Restore replaces the tuner's state by the one in a snapshot written by
 // Snapshot (of this tuner or of another with the same settings, e.g.
-// before a restart). The restored parameter is published as version
-// max(current, snapshot's) + 1, so versions never go back, and reports
-// taken before the restore are dropped as stale.
+// before a restart), including the frozen flag and the counters. The
+// restored parameter is published as this tuner's next version (the
+// snapshot's version is informational: versions order the reads and
+// reports of one process), and reports taken before the restore are
+// dropped as stale.
 //
 // The snapshot is checked completely before anything changes: malformed or
 // truncated JSON, unknown or missing fields, trailing data, another
@@ -93,7 +94,7 @@ func (t *Tuner) Restore(data []byte) error {
 		return ErrClosed
 	}
 	t.c.setState(st)
-	t.version = max(t.version, *s.Version) + 1
+	t.version++
 	t.barrier = t.version
 	t.frozen = *s.Frozen
 	c := s.Counts
@@ -152,7 +153,7 @@ func (t *Tuner) decodeSnapshot(data []byte) (coreState, *snapshot, error) {
 		{"dim", s.Dim == nil}, {"version", s.Version == nil}, {"x", s.X == nil}, {"average", s.Average == nil},
 		{"averaged", s.Averaged == nil}, {"steps", s.Steps == nil}, {"gain_index", s.GainIndex == nil},
 		{"active", s.Active == nil}, {"limited", s.Limited == nil}, {"frozen", s.Frozen == nil},
-		{"barrier", s.Barrier == nil}, {"counts", s.Counts == nil},
+		{"counts", s.Counts == nil},
 	} {
 		if f.missing {
 			return coreState{}, nil, snapErr("field %q is missing", f.name)
@@ -176,12 +177,6 @@ func (t *Tuner) decodeSnapshot(data []byte) (coreState, *snapshot, error) {
 	steps, nAvg, gi := *s.Steps, *s.Averaged, *s.GainIndex
 	if steps < 0 || nAvg < 0 || gi < 0 || nAvg > steps || gi > steps {
 		return coreState{}, nil, snapErr("inconsistent counters: steps %d, averaged %d, gain_index %d (need 0 ≤ averaged, gain_index ≤ steps)", steps, nAvg, gi)
-	}
-	if *s.Barrier > *s.Version {
-		return coreState{}, nil, snapErr("barrier %d after version %d", *s.Barrier, *s.Version)
-	}
-	if *s.Version == math.MaxUint64 || *s.Version == math.MaxUint64-1 {
-		return coreState{}, nil, snapErr("version %d leaves no room to publish", *s.Version)
 	}
 	if err := checkPoint(s.X, t.set); err != nil {
 		return coreState{}, nil, snapErr("parameter: %w", err)

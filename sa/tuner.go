@@ -208,19 +208,11 @@ func (s TunerStats) Reports() uint64 {
 }
 
 // ring is the number of published versions kept; a power of two. A reader
-// retries only if the tuner publishes this many versions while it copies
-// one, so retries are rare even under a steady stream of reports.
+// retries only if the tuner publishes ring−1 versions while it copies one.
 const (
 	ring     = 8
 	ringMask = ring - 1
-	busy     = math.MaxUint64 // slot version while the slot is written
 )
-
-// slot is a published version; padded to its own cache line.
-type slot struct {
-	ver atomic.Uint64
-	_   [56]byte
-}
 
 // Tuner is a push-style stochastic-approximation tuner for a live system.
 // The system reads the current parameter with Param (lock-free, no
@@ -250,13 +242,18 @@ type slot struct {
 //
 // # Publication
 //
-// Published values live in a ring of 8 preallocated slots, each guarded by
-// its own version stamp (a seqlock per slot, every access atomic). The
-// writer fills the slot after the current one and then moves the current
-// index; a reader copies the current slot and checks that its stamp did
-// not change. Publishing therefore allocates nothing (an atomic pointer to
-// a fresh immutable value would allocate once per update), readers never
-// block the writer or each other, and a reader retries only when 8 updates
+// Published values live in a ring of 8 preallocated slots; version v is in
+// slot v mod 8, and every change publishes exactly the next version. The
+// writer stores the new values into their slot (atomically, number by
+// number) and then stores the new current version. A reader loads the
+// current version v, copies slot v mod 8, and loads the current version
+// again: if it is below v+7, the writer cannot yet have started to
+// overwrite that slot (it writes version v+8 only after publishing v+7, and
+// Go's atomic operations are sequentially consistent), so the copy is
+// exactly version v; otherwise the reader starts over. Publishing therefore
+// costs d+1 atomic stores and no allocation (an atomic pointer to a fresh
+// immutable value would allocate once per update), readers never block
+// the writer or each other, and a reader retries only when 7 updates
 // happen while it copies d numbers.
 //
 // # Concurrency
@@ -270,9 +267,8 @@ type Tuner struct {
 	d      int
 	stride int // distance between slots in vals (cache-line multiple)
 
-	cur   atomic.Uint64 // current published version
-	slots [ring]slot
-	vals  []atomic.Uint64 // Float64bits of the published values
+	cur  atomic.Uint64   // current published version
+	vals []atomic.Uint64 // Float64bits of the published values, ring slots of stride numbers
 
 	mu      sync.Mutex
 	c       *core
@@ -314,9 +310,6 @@ func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
 		t.maxLag = uint64(rs.MaxLag)
 	}
 	t.vals = make([]atomic.Uint64, ring*t.stride)
-	for i := range t.slots {
-		t.slots[i].ver.Store(busy)
-	}
 	t.publish()
 	return t, nil
 }
@@ -340,20 +333,21 @@ func checkPoint(x []float64, s TunerSettings) error {
 	return nil
 }
 
-// publish stores the core's iterate as version t.version. Called with mu
-// held (or before the tuner is shared).
+// publish stores the core's iterate as version t.version, which must be
+// the previous version plus one (or 0 for the first). Called with mu held
+// (or before the tuner is shared).
 func (t *Tuner) publish() {
 	v := t.version
-	i := int(v & ringMask)
-	s := &t.slots[i]
-	s.ver.Store(busy)
-	vals := t.vals[i*t.stride:][:t.d]
+	vals := t.vals[int(v&ringMask)*t.stride:][:t.d]
 	for j, x := range t.c.x {
 		vals[j].Store(math.Float64bits(x))
 	}
-	s.ver.Store(v)
 	t.cur.Store(v)
 }
+
+// fresh reports whether a copy of version v's slot made before loading
+// now as the current version is exactly version v (see Publication).
+func fresh(v, now uint64) bool { return now-v < ring-1 }
 
 // Dim returns the dimension of the parameter.
 func (t *Tuner) Dim() int { return t.d }
@@ -368,16 +362,11 @@ func (t *Tuner) Param(dst []float64) (version uint64) {
 	}
 	for {
 		v := t.cur.Load()
-		i := int(v & ringMask)
-		s := &t.slots[i]
-		if s.ver.Load() != v {
-			continue // overwritten since: read the new current version
-		}
-		vals := t.vals[i*t.stride:][:t.d]
+		vals := t.vals[int(v&ringMask)*t.stride:][:t.d]
 		for j := range dst {
 			dst[j] = math.Float64frombits(vals[j].Load())
 		}
-		if s.ver.Load() == v {
+		if fresh(v, t.cur.Load()) {
 			return v
 		}
 	}
@@ -391,13 +380,8 @@ func (t *Tuner) Param1() (x float64, version uint64) {
 	}
 	for {
 		v := t.cur.Load()
-		i := int(v & ringMask)
-		s := &t.slots[i]
-		if s.ver.Load() != v {
-			continue
-		}
-		x = math.Float64frombits(t.vals[i*t.stride].Load())
-		if s.ver.Load() == v {
+		x = math.Float64frombits(t.vals[int(v&ringMask)*t.stride].Load())
+		if fresh(v, t.cur.Load()) {
 			return x, v
 		}
 	}

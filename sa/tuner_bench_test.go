@@ -1,6 +1,7 @@
 package sa
 
 import (
+	"math"
 	"runtime"
 	"sync"
 	"sync/atomic"
@@ -133,4 +134,37 @@ func name(s string, g int) string {
 		return s + "/goroutines=1"
 	}
 	return s + "/goroutines=8" // with GOMAXPROCS ≤ 8 dividing 8
+}
+
+// BenchmarkTunerReportHook measures what an OnUpdate hook that feeds a
+// metric costs a report, against the same tuner without a hook.
+func BenchmarkTunerReportHook(b *testing.B) {
+	for _, withHook := range []bool{false, true} {
+		n := "baseline=no-hook"
+		if withHook {
+			n = "hook=counter+last-value"
+		}
+		b.Run(n, func(b *testing.B) {
+			var updates atomic.Uint64
+			var last atomic.Uint64
+			s := TunerSettings{Gain: schedule.Constant(1e-6), Projection: box1(0, 1), MaxChange: []float64{0.1}}
+			if withHook {
+				s.OnUpdate = func(u Update) {
+					updates.Add(1)
+					last.Store(math.Float64bits(u.X[0]))
+				}
+			}
+			tu, err := NewTuner([]float64{0.5}, s)
+			if err != nil {
+				b.Fatal(err)
+			}
+			b.ReportAllocs()
+			y := 0.1
+			for b.Loop() {
+				_, v := tu.Param1()
+				tu.Report1(v, y)
+				y = -y
+			}
+		})
+	}
 }

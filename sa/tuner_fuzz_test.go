@@ -29,9 +29,9 @@ func FuzzTunerRestore(f *testing.F) {
 	f.Add(good[:len(good)/2])
 	f.Add([]byte(`{"format":2}`))
 	f.Add([]byte(`{"format":1}`))
-	f.Add([]byte(`{"format":1,"dim":1,"version":0,"x":[0],"average":[0],"averaged":0,"steps":0,"gain_index":0,"active":false,"limited":false,"frozen":false,"barrier":0,"counts":{}}`))
-	f.Add([]byte(`{"format":1,"dim":2,"version":0,"x":[0,0],"average":[0,0],"averaged":0,"steps":0,"gain_index":0,"active":false,"limited":false,"frozen":false,"barrier":0,"counts":{}}`))
-	f.Add([]byte(`{"format":1,"dim":1,"version":18446744073709551615,"x":[0],"average":[0],"averaged":0,"steps":0,"gain_index":0,"active":false,"limited":false,"frozen":true,"barrier":0,"counts":{}}`))
+	f.Add([]byte(`{"format":1,"dim":1,"version":0,"x":[0],"average":[0],"averaged":0,"steps":0,"gain_index":0,"active":false,"limited":false,"frozen":false,"counts":{}}`))
+	f.Add([]byte(`{"format":1,"dim":2,"version":0,"x":[0,0],"average":[0,0],"averaged":0,"steps":0,"gain_index":0,"active":false,"limited":false,"frozen":false,"counts":{}}`))
+	f.Add([]byte(`{"format":1,"dim":1,"version":18446744073709551615,"x":[0],"average":[0],"averaged":0,"steps":0,"gain_index":0,"active":false,"limited":false,"frozen":true,"counts":{}}`))
 	f.Add([]byte(`null`))
 	f.Add([]byte(``))
 	f.Fuzz(func(t *testing.T, data []byte) {
