@@ -690,3 +690,57 @@ func TestSetpointTuner(t *testing.T) {
 		t.Errorf("setpoint knob = %.5g, want 1 ± %.3g", avg[0], 4*se)
 	}
 }
+
+// TestTunerReadsAreNotTorn publishes vectors whose coordinates are always
+// equal (equal start, equal measurements) from two writers while two
+// readers check every copy they get: a read mixing two versions would
+// show unequal coordinates.
+func TestTunerReadsAreNotTorn(t *testing.T) {
+	const d, updates = 5, 200_000
+	tu := mustTuner(t, []float64{1, 1, 1, 1, 1}, TunerSettings{Gain: schedule.Constant(0.5), MaxLag: 1 << 20})
+	var wg sync.WaitGroup
+	var done atomic.Bool
+	for w := range 2 {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			rng := rand.New(rand.NewPCG(uint64(w), 1))
+			x := make([]float64, d)
+			y := make([]float64, d)
+			for range updates / 2 {
+				v := tu.Param(x)
+				u := rng.NormFloat64() + x[0] - 1 // keeps x near 1
+				for i := range y {
+					y[i] = u
+				}
+				tu.Report(v, y)
+			}
+		}()
+	}
+	var reads atomic.Int64
+	var rwg sync.WaitGroup
+	for range 2 {
+		rwg.Add(1)
+		go func() {
+			defer rwg.Done()
+			x := make([]float64, d)
+			for !done.Load() {
+				tu.Param(x)
+				reads.Add(1)
+				for i := 1; i < d; i++ {
+					if x[i] != x[0] {
+						t.Errorf("torn read: %v", x)
+						return
+					}
+				}
+			}
+		}()
+	}
+	wg.Wait()
+	done.Store(true)
+	rwg.Wait()
+	if st := tu.Stats(); st.Applied != updates {
+		t.Fatalf("applied %d of %d", st.Applied, updates)
+	}
+	t.Logf("%d reads checked during %d updates", reads.Load(), updates)
+}
