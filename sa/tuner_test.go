@@ -2,6 +2,7 @@ package sa
 
 import (
 	"bytes"
+	"context"
 	"errors"
 	"fmt"
 	"math"
@@ -12,6 +13,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/stochroot/stochroot/oracle"
 	"github.com/stochroot/stochroot/schedule"
 )
 
@@ -743,4 +745,45 @@ func TestTunerReadsAreNotTorn(t *testing.T) {
 		t.Fatalf("applied %d of %d", st.Applied, updates)
 	}
 	t.Logf("%d reads checked during %d updates", reads.Load(), updates)
+}
+
+// TestTunerMatchesPullDriver feeds a tuner, one report at a time, the
+// measurements RobbinsMonro draws from the same oracle and stream: both
+// drive the one update core, so iterates and averages agree bit for bit.
+func TestTunerMatchesPullDriver(t *testing.T) {
+	h := oracle.FieldFunc(func(dst, x []float64, rng *rand.Rand) error {
+		dst[0] = 2*(x[0]-1) + rng.NormFloat64()
+		dst[1] = x[1] + 0.5*x[0] + rng.NormFloat64()
+		return nil
+	})
+	box := Box{Lower: []float64{-2, -2}, Upper: []float64{2, 2}}
+	gain := schedule.Power{Scale: 0.3, Exponent: 0.7}
+	x0 := []float64{-1.5, 1.5}
+	const n = 500
+	r, err := RobbinsMonro(context.Background(), h, x0, Settings{Gain: gain, MaxSteps: n, BurnIn: 50, Projection: box, Seed: 9})
+	if err != nil {
+		t.Fatal(err)
+	}
+	tu := mustTuner(t, x0, TunerSettings{Gain: gain, BurnIn: 50, Projection: box})
+	rng := rand.New(rand.NewPCG(9, streamMeasure))
+	x := make([]float64, 2)
+	y := make([]float64, 2)
+	for range n {
+		v := tu.Param(x)
+		h.Measure(y, x, rng)
+		if out, err := tu.Report(v, y); out != Applied {
+			t.Fatalf("report %v, %v", out, err)
+		}
+	}
+	avg := make([]float64, 2)
+	m := tu.Average(avg)
+	tu.Param(x)
+	for i := range x {
+		if x[i] != r.X[i] || avg[i] != r.Average[i] {
+			t.Fatalf("tuner x = %v, avg = %v; RobbinsMonro x = %v, avg = %v", x, avg, r.X, r.Average)
+		}
+	}
+	if m != r.Averaged {
+		t.Fatalf("averaged %d vs %d", m, r.Averaged)
+	}
 }
