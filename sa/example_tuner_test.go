@@ -72,3 +72,29 @@ func ExampleTuner_Snapshot() {
 	// after one report: 7 (version 1)
 	// restored: 16 (version 1), frozen true
 }
+
+// A concurrency limit that holds a measured queueing delay at 50 ms. The
+// delay rises with the limit (Rising); the knob is bounded to [1, 256] and
+// moves at most 4 per update.
+func ExampleSetpointTuner() {
+	rng := rand.New(rand.NewPCG(3, 4))
+	delayMs := func(limit float64) float64 { return 0.8*limit + 5*rng.NormFloat64() } // invented: 0.8 ms per slot
+
+	s, err := sa.NewSetpointTuner(50, sa.Rising, 16, sa.TunerSettings{
+		Gain:       schedule.Constant(0.25), // ≈ 1/(5·slope): averages the noise over ~5 reports
+		Projection: sa.Box{Lower: []float64{1}, Upper: []float64{256}},
+		MaxChange:  []float64{4},
+	})
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	for range 2000 {
+		limit, version := s.Param()
+		s.Observe(version, delayMs(limit))
+	}
+	limit, _ := s.Param()
+	fmt.Printf("limit %.4g (the delay is 50 ms at 62.5; stationary spread ±2.1)\n", limit)
+	// Output:
+	// limit 63.44 (the delay is 50 ms at 62.5; stationary spread ±2.1)
+}
