@@ -168,15 +168,15 @@ const (
 // Update describes one change of the published parameter, for
 // TunerSettings.OnUpdate.
 type Update struct {
-	Kind    UpdateKind
-	Version uint64    // version published by this change
-	Step    int       // k of the update (StepUpdate); updates applied so far otherwise
-	Gain    float64   // a_k used (StepUpdate)
-	Lag     uint64    // current version minus the report's version before the update (StepUpdate)
-	X       []float64 // the new parameter; valid only during the call
-	Y       []float64 // the measurement (StepUpdate); valid only during the call
-	Active  bool      // the projection moved the new parameter
-	Limited bool      // MaxChange cut the update
+	Kind    UpdateKind // what changed the parameter
+	Version uint64     // version published by this change
+	Step    int        // k of the update (StepUpdate); updates applied so far otherwise
+	Gain    float64    // a_k used (StepUpdate)
+	Lag     uint64     // current version minus the report's version before the update (StepUpdate)
+	X       []float64  // the new parameter; valid only during the call
+	Y       []float64  // the measurement (StepUpdate); valid only during the call
+	Active  bool       // the projection moved the new parameter
+	Limited bool       // MaxChange cut the update
 }
 
 // TunerStats counts what a tuner did with the reports it received. Every

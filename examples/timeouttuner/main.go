@@ -199,7 +199,7 @@ func main() {
 	// Report.
 	st := q.Tuner().Stats()
 	fmt.Printf("target: %.4g of requests within the timeout; backend median 4 ms → 8 ms between 4.5 s and 5.5 s\n", p)
-	fmt.Printf("%6s %12s %14s %9s %9s\n", "t (s)", "timeout ms", "designed q ms", "requests", "within")
+	fmt.Printf("%6s %12s %12s %14s %9s %9s\n", "t (s)", "timeout at t", "mean of s", "designed q ms", "requests", "within")
 	perSec := int(time.Second / bin)
 	for s := 0; s < int(runFor/time.Second); s++ {
 		var tot, in int64
@@ -208,8 +208,8 @@ func main() {
 			in += bins[b].within.Load()
 		}
 		at := time.Duration(s+1) * time.Second
-		fmt.Printf("%6d %12.4g %14.4g %9d %9.4g\n", s+1, timeoutAt(samples.t, samples.timeout, at.Seconds()-0.01),
-			designedQuantileMs(at-time.Millisecond), tot, frac(in, tot))
+		fmt.Printf("%6d %12.4g %12.4g %14.4g %9d %9.4g\n", s+1, timeoutAt(samples.t, samples.timeout, at.Seconds()-0.01),
+			meanTimeout(samples.t, samples.timeout, float64(s), float64(s+1)), designedQuantileMs(at-time.Millisecond), tot, frac(in, tot))
 	}
 	phase := func(name string, from, to float64) {
 		var tot, in int64
@@ -217,16 +217,8 @@ func main() {
 			tot += bins[b].total.Load()
 			in += bins[b].within.Load()
 		}
-		var sum float64
-		var n int
-		for i, t := range samples.t {
-			if t >= from && t < to {
-				sum += samples.timeout[i]
-				n++
-			}
-		}
 		fmt.Printf("%s (%.4g–%.4g s): mean timeout %.4g ms (designed 0.99-quantile %.4g ms), %d requests, %.4g within\n",
-			name, from, to, sum/float64(n), designedQuantileMs(time.Duration(from*float64(time.Second))), tot, frac(in, tot))
+			name, from, to, meanTimeout(samples.t, samples.timeout, from, to), designedQuantileMs(time.Duration(from*float64(time.Second))), tot, frac(in, tot))
 	}
 	phase("before the drift", 2, 4.5)
 	phase("after the drift ", 7, 10)
@@ -248,6 +240,19 @@ func frac(in, tot int64) float64 {
 		return math.NaN()
 	}
 	return float64(in) / float64(tot)
+}
+
+// meanTimeout returns the mean of the sampled timeouts in [from, to) seconds.
+func meanTimeout(ts, xs []float64, from, to float64) float64 {
+	var sum float64
+	var n int
+	for i, t := range ts {
+		if t >= from && t < to {
+			sum += xs[i]
+			n++
+		}
+	}
+	return sum / float64(n)
 }
 
 // timeoutAt returns the last sampled timeout at or before time t.
