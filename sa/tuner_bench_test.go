@@ -15,11 +15,11 @@ import (
 // scalar update x −= a·y for reports, so the ratio shows the tuner's cost
 // over the least a concurrent tuner must do.
 
-var sinkF float64
+var tunerSink float64
 
 func benchTuner(b *testing.B) *Tuner {
 	tu, err := NewTuner([]float64{0.5}, TunerSettings{
-		Gain: schedule.Constant(1e-6), Projection: box1(0, 1), MaxChange: []float64{0.1}, MaxLag: 1 << 30,
+		Gain: schedule.Constant(1e-6), Projection: tunerBox1(0, 1), MaxChange: []float64{0.1}, MaxLag: 1 << 30,
 	})
 	if err != nil {
 		b.Fatal(err)
@@ -32,7 +32,7 @@ func BenchmarkTunerRead(b *testing.B) {
 		var u atomic.Uint64
 		b.ReportAllocs()
 		for b.Loop() {
-			sinkF += float64(u.Load())
+			tunerSink += float64(u.Load())
 		}
 	})
 	b.Run("Param1", func(b *testing.B) {
@@ -40,7 +40,7 @@ func BenchmarkTunerRead(b *testing.B) {
 		b.ReportAllocs()
 		for b.Loop() {
 			x, _ := tu.Param1()
-			sinkF += x
+			tunerSink += x
 		}
 	})
 	b.Run("Param1/parallel-while-reporting", func(b *testing.B) {
@@ -88,7 +88,7 @@ func (m *mutexScalar) update(a, y float64) {
 
 func BenchmarkTunerReport(b *testing.B) {
 	for _, g := range []int{1, 8} {
-		b.Run(name("baseline=mutex-scalar", g), func(b *testing.B) {
+		b.Run(tunerBenchName("baseline=mutex-scalar", g), func(b *testing.B) {
 			var m mutexScalar
 			b.ReportAllocs()
 			if g == 1 {
@@ -104,7 +104,7 @@ func BenchmarkTunerReport(b *testing.B) {
 				}
 			})
 		})
-		b.Run(name("Param1+Report1", g), func(b *testing.B) {
+		b.Run(tunerBenchName("Param1+Report1", g), func(b *testing.B) {
 			tu := benchTuner(b)
 			b.ReportAllocs()
 			if g == 1 {
@@ -129,7 +129,7 @@ func BenchmarkTunerReport(b *testing.B) {
 	}
 }
 
-func name(s string, g int) string {
+func tunerBenchName(s string, g int) string {
 	if g == 1 {
 		return s + "/goroutines=1"
 	}
@@ -147,7 +147,7 @@ func BenchmarkTunerReportHook(b *testing.B) {
 		b.Run(n, func(b *testing.B) {
 			var updates atomic.Uint64
 			var last atomic.Uint64
-			s := TunerSettings{Gain: schedule.Constant(1e-6), Projection: box1(0, 1), MaxChange: []float64{0.1}}
+			s := TunerSettings{Gain: schedule.Constant(1e-6), Projection: tunerBox1(0, 1), MaxChange: []float64{0.1}}
 			if withHook {
 				s.OnUpdate = func(u Update) {
 					updates.Add(1)

@@ -15,7 +15,7 @@ import (
 // published parameter must be finite and inside the bounds, and a snapshot
 // of the result must restore again.
 func FuzzTunerRestore(f *testing.F) {
-	s := TunerSettings{Gain: schedule.Kesten{Base: schedule.Harmonic(0.5)}, Projection: box1(-5, 5), MaxChange: []float64{1}}
+	s := TunerSettings{Gain: schedule.Kesten{Base: schedule.Harmonic(0.5)}, Projection: tunerBox1(-5, 5), MaxChange: []float64{1}}
 	src, err := NewTuner([]float64{1}, s)
 	if err != nil {
 		f.Fatal(err)

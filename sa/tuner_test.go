@@ -17,9 +17,9 @@ import (
 	"github.com/stochroot/stochroot/schedule"
 )
 
-func box1(lo, hi float64) Box { return Box{Lower: []float64{lo}, Upper: []float64{hi}} }
+func tunerBox1(lo, hi float64) Box { return Box{Lower: []float64{lo}, Upper: []float64{hi}} }
 
-func mustTuner(t testing.TB, x0 []float64, s TunerSettings) *Tuner {
+func newTestTuner(t testing.TB, x0 []float64, s TunerSettings) *Tuner {
 	t.Helper()
 	tu, err := NewTuner(x0, s)
 	if err != nil {
@@ -29,7 +29,7 @@ func mustTuner(t testing.TB, x0 []float64, s TunerSettings) *Tuner {
 }
 
 // snap returns the tuner's snapshot; used to compare whole states.
-func snap(t testing.TB, tu *Tuner) []byte {
+func tunerSnap(t testing.TB, tu *Tuner) []byte {
 	t.Helper()
 	b, err := tu.Snapshot()
 	if err != nil {
@@ -40,7 +40,7 @@ func snap(t testing.TB, tu *Tuner) []byte {
 
 func TestTunerUpdate(t *testing.T) {
 	var hooked []Update
-	tu := mustTuner(t, []float64{1, 2}, TunerSettings{
+	tu := newTestTuner(t, []float64{1, 2}, TunerSettings{
 		Gain: schedule.Constant(0.5),
 		OnUpdate: func(u Update) {
 			u.X = append([]float64(nil), u.X...)
@@ -89,7 +89,7 @@ func TestTunerStaleness(t *testing.T) {
 		{"default, lag 17", 0, DefaultMaxLag + 1, Stale},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
-			tu := mustTuner(t, []float64{0}, TunerSettings{Gain: schedule.Constant(1), MaxLag: tc.maxLag})
+			tu := newTestTuner(t, []float64{0}, TunerSettings{Gain: schedule.Constant(1), MaxLag: tc.maxLag})
 			for range 20 {
 				_, v := tu.Param1()
 				tu.Report1(v, 0.1)
@@ -113,7 +113,7 @@ func TestTunerStaleness(t *testing.T) {
 }
 
 func TestTunerOverrideIsBarrier(t *testing.T) {
-	tu := mustTuner(t, []float64{5}, TunerSettings{Gain: schedule.Constant(1), Projection: box1(0, 10)})
+	tu := newTestTuner(t, []float64{5}, TunerSettings{Gain: schedule.Constant(1), Projection: tunerBox1(0, 10)})
 	_, v0 := tu.Param1()
 	if err := tu.Override([]float64{7}); err != nil {
 		t.Fatal(err)
@@ -137,18 +137,18 @@ func TestTunerOverrideIsBarrier(t *testing.T) {
 		t.Fatalf("average after override restarts: got %v over %d, want 6 over 1", avg[0], n)
 	}
 	for _, bad := range [][]float64{{11}, {-1}, {math.NaN()}, {1, 2}} {
-		before := snap(t, tu)
+		before := tunerSnap(t, tu)
 		if err := tu.Override(bad); err == nil {
 			t.Errorf("Override(%v) = nil, want an error", bad)
 		}
-		if !bytes.Equal(before, snap(t, tu)) {
+		if !bytes.Equal(before, tunerSnap(t, tu)) {
 			t.Errorf("failed Override(%v) changed the state", bad)
 		}
 	}
 }
 
 func TestTunerFreezeResume(t *testing.T) {
-	tu := mustTuner(t, []float64{0}, TunerSettings{Gain: schedule.Constant(1)})
+	tu := newTestTuner(t, []float64{0}, TunerSettings{Gain: schedule.Constant(1)})
 	tu.Freeze()
 	if !tu.IsFrozen() {
 		t.Fatal("IsFrozen = false after Freeze")
@@ -182,7 +182,7 @@ func TestTunerFreezeResume(t *testing.T) {
 
 func TestTunerBoundsAndMaxChange(t *testing.T) {
 	var limited, active int
-	tu := mustTuner(t, []float64{0, 0}, TunerSettings{
+	tu := newTestTuner(t, []float64{0, 0}, TunerSettings{
 		Gain:       schedule.Constant(1),
 		Projection: Box{Lower: []float64{-1, -10}, Upper: []float64{1, 10}},
 		MaxChange:  []float64{math.Inf(1), 0.25},
@@ -249,10 +249,10 @@ func TestTunerBadInput(t *testing.T) {
 			{"gain < 0", []float64{1}, TunerSettings{Gain: schedule.Constant(-0.1)}, ErrSettings},
 			{"power scale 0", []float64{1}, TunerSettings{Gain: schedule.Power{Scale: 0, Exponent: 1}}, ErrSettings},
 			{"power scale < 0", []float64{1}, TunerSettings{Gain: schedule.Power{Scale: -1, Exponent: 0.7}}, ErrSettings},
-			{"lower > upper", []float64{1}, TunerSettings{Gain: schedule.Constant(1), Projection: box1(2, 0)}, ErrSettings},
-			{"NaN bound", []float64{1}, TunerSettings{Gain: schedule.Constant(1), Projection: box1(math.NaN(), 2)}, ErrSettings},
-			{"box dimension", []float64{1, 1}, TunerSettings{Gain: schedule.Constant(1), Projection: box1(0, 2)}, ErrDimension},
-			{"x0 outside box", []float64{3}, TunerSettings{Gain: schedule.Constant(1), Projection: box1(0, 2)}, ErrOutOfBounds},
+			{"lower > upper", []float64{1}, TunerSettings{Gain: schedule.Constant(1), Projection: tunerBox1(2, 0)}, ErrSettings},
+			{"NaN bound", []float64{1}, TunerSettings{Gain: schedule.Constant(1), Projection: tunerBox1(math.NaN(), 2)}, ErrSettings},
+			{"box dimension", []float64{1, 1}, TunerSettings{Gain: schedule.Constant(1), Projection: tunerBox1(0, 2)}, ErrDimension},
+			{"x0 outside box", []float64{3}, TunerSettings{Gain: schedule.Constant(1), Projection: tunerBox1(0, 2)}, ErrOutOfBounds},
 			{"x0 beyond MaxAbs", []float64{3}, TunerSettings{Gain: schedule.Constant(1), MaxAbs: 2}, ErrOutOfBounds},
 			{"x0 NaN", []float64{math.NaN()}, TunerSettings{Gain: schedule.Constant(1)}, ErrNotFinite},
 			{"empty x0", nil, TunerSettings{Gain: schedule.Constant(1)}, ErrDimension},
@@ -276,8 +276,8 @@ func TestTunerBadInput(t *testing.T) {
 	})
 
 	t.Run("non-finite measurements", func(t *testing.T) {
-		tu := mustTuner(t, []float64{1, 1}, TunerSettings{Gain: schedule.Constant(1)})
-		before := snap(t, tu)
+		tu := newTestTuner(t, []float64{1, 1}, TunerSettings{Gain: schedule.Constant(1)})
+		before := tunerSnap(t, tu)
 		for i, y := range [][]float64{{math.NaN(), 0}, {0, math.Inf(1)}, {math.Inf(-1), 1}} {
 			out, err := tu.Report(0, y)
 			if out != Rejected || !errors.Is(err, ErrNotFinite) {
@@ -287,7 +287,7 @@ func TestTunerBadInput(t *testing.T) {
 				t.Fatalf("Stats = %+v", st)
 			}
 		}
-		after := snap(t, tu)
+		after := tunerSnap(t, tu)
 		// Only the counter differs.
 		if !bytes.Equal(bytes.Replace(after, []byte(`"not_finite":3`), []byte(`"not_finite":0`), 1), before) {
 			t.Fatalf("state changed:\n%s\n%s", before, after)
@@ -295,7 +295,7 @@ func TestTunerBadInput(t *testing.T) {
 	})
 
 	t.Run("version from the future", func(t *testing.T) {
-		tu := mustTuner(t, []float64{1}, TunerSettings{Gain: schedule.Constant(1)})
+		tu := newTestTuner(t, []float64{1}, TunerSettings{Gain: schedule.Constant(1)})
 		out, err := tu.Report1(1, 0.5)
 		if out != Rejected || !errors.Is(err, ErrFutureVersion) {
 			t.Fatalf("Report1(future) = %v, %v; want rejected, ErrFutureVersion", out, err)
@@ -306,8 +306,8 @@ func TestTunerBadInput(t *testing.T) {
 	})
 
 	t.Run("after close", func(t *testing.T) {
-		tu := mustTuner(t, []float64{1}, TunerSettings{Gain: schedule.Constant(1)})
-		s := snap(t, tu)
+		tu := newTestTuner(t, []float64{1}, TunerSettings{Gain: schedule.Constant(1)})
+		s := tunerSnap(t, tu)
 		if err := tu.Close(); err != nil {
 			t.Fatal(err)
 		}
@@ -332,7 +332,7 @@ func TestTunerBadInput(t *testing.T) {
 	})
 
 	t.Run("wrong length", func(t *testing.T) {
-		tu := mustTuner(t, []float64{1}, TunerSettings{Gain: schedule.Constant(1)})
+		tu := newTestTuner(t, []float64{1}, TunerSettings{Gain: schedule.Constant(1)})
 		if out, err := tu.Report(0, []float64{1, 2}); out != Rejected || !errors.Is(err, ErrDimension) {
 			t.Fatalf("Report(len 2) = %v, %v", out, err)
 		}
@@ -347,18 +347,18 @@ func TestTunerBadInput(t *testing.T) {
 	})
 
 	t.Run("gain turns negative at run time", func(t *testing.T) {
-		tu := mustTuner(t, []float64{1}, TunerSettings{Gain: schedule.Func(func(k int) float64 { return 1 - float64(k) })})
+		tu := newTestTuner(t, []float64{1}, TunerSettings{Gain: schedule.Func(func(k int) float64 { return 1 - float64(k) })})
 		tu.Report1(0, 0.5) // a_0 = 1
-		before := snap(t, tu)
+		before := tunerSnap(t, tu)
 		_, v := tu.Param1()
 		tu.Report1(v, 0.5) // a_1 = 0: allowed, x stays but the step counts
 		_, v = tu.Param1()
-		before = snap(t, tu)
+		before = tunerSnap(t, tu)
 		out, err := tu.Report1(v, 0.5) // a_2 = −1
 		if out != Rejected || !errors.Is(err, ErrGain) {
 			t.Fatalf("Report with a_2 = −1: %v, %v; want rejected, ErrGain", out, err)
 		}
-		after := snap(t, tu)
+		after := tunerSnap(t, tu)
 		if !bytes.Equal(bytes.Replace(after, []byte(`"failed":1`), []byte(`"failed":0`), 1), before) {
 			t.Fatalf("state changed:\n%s\n%s", before, after)
 		}
@@ -399,7 +399,7 @@ func TestTunerSnapshotRoundTrip(t *testing.T) {
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			s := TunerSettings{Gain: tc.gain, BurnIn: 5, Projection: Box{Lower: []float64{-3, -3}, Upper: []float64{3, 3}}}
-			a := mustTuner(t, []float64{2, -2}, s)
+			a := newTestTuner(t, []float64{2, -2}, s)
 			rng := rand.New(rand.NewPCG(1, 2))
 			x := make([]float64, 2)
 			y := make([]float64, 2)
@@ -411,8 +411,8 @@ func TestTunerSnapshotRoundTrip(t *testing.T) {
 				}
 			}
 			feed(a, rng, 50)
-			data := snap(t, a)
-			b := mustTuner(t, []float64{0, 0}, s)
+			data := tunerSnap(t, a)
+			b := newTestTuner(t, []float64{0, 0}, s)
 			if err := b.Restore(data); err != nil {
 				t.Fatalf("Restore: %v\n%s", err, data)
 			}
@@ -439,15 +439,15 @@ func TestTunerSnapshotRoundTrip(t *testing.T) {
 }
 
 func TestTunerRestoreRejects(t *testing.T) {
-	s := TunerSettings{Gain: schedule.Constant(0.1), Projection: box1(0, 10)}
-	src := mustTuner(t, []float64{5}, s)
+	s := TunerSettings{Gain: schedule.Constant(0.1), Projection: tunerBox1(0, 10)}
+	src := newTestTuner(t, []float64{5}, s)
 	for range 10 {
 		_, v := src.Param1()
 		src.Report1(v, 1)
 	}
-	good := string(snap(t, src))
-	two := mustTuner(t, []float64{1, 1}, TunerSettings{Gain: schedule.Constant(0.1)})
-	otherDim := string(snap(t, two))
+	good := string(tunerSnap(t, src))
+	two := newTestTuner(t, []float64{1, 1}, TunerSettings{Gain: schedule.Constant(0.1)})
+	otherDim := string(tunerSnap(t, two))
 	for _, tc := range []struct {
 		name string
 		data string
@@ -471,10 +471,10 @@ func TestTunerRestoreRejects(t *testing.T) {
 		{"huge number", strings.Replace(good, `"x":[`, `"x":[1e999`, 1), []error{ErrSnapshot}},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
-			dst := mustTuner(t, []float64{1}, s)
+			dst := newTestTuner(t, []float64{1}, s)
 			_, v := dst.Param1()
 			dst.Report1(v, -1)
-			before := snap(t, dst)
+			before := tunerSnap(t, dst)
 			xb, vb := dst.Param1()
 			err := dst.Restore([]byte(tc.data))
 			if err == nil {
@@ -485,7 +485,7 @@ func TestTunerRestoreRejects(t *testing.T) {
 					t.Errorf("Restore error %q does not wrap %v", err, w)
 				}
 			}
-			if !bytes.Equal(before, snap(t, dst)) {
+			if !bytes.Equal(before, tunerSnap(t, dst)) {
 				t.Errorf("failed Restore changed the state")
 			}
 			if x, v := dst.Param1(); x != xb || v != vb {
@@ -513,9 +513,9 @@ func TestTunerRace(t *testing.T) {
 		hooked, lastHooked uint64
 		hookErr            error
 	)
-	tu := mustTuner(t, []float64{0.5}, TunerSettings{
+	tu := newTestTuner(t, []float64{0.5}, TunerSettings{
 		Gain:       schedule.Constant(0.01),
-		Projection: box1(0, 1),
+		Projection: tunerBox1(0, 1),
 		MaxChange:  []float64{0.05},
 		MaxLag:     2,
 		OnUpdate: func(u Update) { // runs under the update lock: plain variables are safe
@@ -626,7 +626,7 @@ func TestTunerRace(t *testing.T) {
 }
 
 func TestTunerAllocs(t *testing.T) {
-	tu := mustTuner(t, []float64{0.5, 0.5}, TunerSettings{
+	tu := newTestTuner(t, []float64{0.5, 0.5}, TunerSettings{
 		Gain: schedule.Power{Scale: 0.1, Exponent: 0.7}, Projection: Box{Lower: []float64{0, 0}, Upper: []float64{1, 1}},
 		MaxChange: []float64{0.1, 0.1}, OnUpdate: func(Update) {},
 	})
@@ -699,7 +699,7 @@ func TestSetpointTuner(t *testing.T) {
 // show unequal coordinates.
 func TestTunerReadsAreNotTorn(t *testing.T) {
 	const d, updates = 5, 200_000
-	tu := mustTuner(t, []float64{1, 1, 1, 1, 1}, TunerSettings{Gain: schedule.Constant(0.5), MaxLag: 1 << 20})
+	tu := newTestTuner(t, []float64{1, 1, 1, 1, 1}, TunerSettings{Gain: schedule.Constant(0.5), MaxLag: 1 << 20})
 	var wg sync.WaitGroup
 	var done atomic.Bool
 	for w := range 2 {
@@ -764,7 +764,7 @@ func TestTunerMatchesPullDriver(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	tu := mustTuner(t, x0, TunerSettings{Gain: gain, BurnIn: 50, Projection: box})
+	tu := newTestTuner(t, x0, TunerSettings{Gain: gain, BurnIn: 50, Projection: box})
 	rng := rand.New(rand.NewPCG(9, streamMeasure))
 	x := make([]float64, 2)
 	y := make([]float64, 2)
