@@ -33,6 +33,13 @@ type core struct {
 	proj   Projection
 	active bool    // the projection moved the last iterate
 	maxAbs float64 // > 0: |x_i| above it is divergence
+
+	// maxChange, if not nil, bounds every update coordinate-wise before the
+	// projection: |x_{k+1,i} − x_{k,i}| ≤ maxChange[i] (a trust region of
+	// the step). limited reports that the bound cut the last update.
+	maxChange []float64
+	limited   bool
+	lastGain  float64 // a_k of the last applied update
 }
 
 // newCore copies x0 and prepares a core. The arguments must already be
@@ -67,7 +74,7 @@ func (c *core) step(y []float64) error {
 	for i, yi := range y {
 		v := x[i] - a*yi
 		next[i] = v
-		nan += v * 0
+		nan += v * 0 // before any limit: an infinite step must still fail
 	}
 	if nan != 0 { // NaN compares unequal to 0
 		for i, yi := range y {
@@ -76,6 +83,10 @@ func (c *core) step(y []float64) error {
 			}
 		}
 		return &StepError{Step: c.steps, Err: fmt.Errorf("%w: x − a·Y overflows (a = %v)", ErrDiverged, a)}
+	}
+	limited := false
+	if c.maxChange != nil {
+		limited = clampChange(next, x, c.maxChange)
 	}
 	active := false
 	if c.proj != nil {
@@ -91,6 +102,8 @@ func (c *core) step(y []float64) error {
 	// Commit.
 	c.x, c.next = next, x
 	c.active = active
+	c.limited = limited
+	c.lastGain = a
 	if c.adapt != nil {
 		var prev []float64
 		if c.hasPrev {
@@ -127,4 +140,80 @@ func (c *core) fill(r *Result) {
 	r.Averaged = c.nAvg
 	r.Steps = c.steps
 	r.Active = c.active
+}
+
+// clampChange moves next[i] to within ±m[i] of x[i] and reports whether any
+// coordinate moved.
+func clampChange(next, x, m []float64) bool {
+	limited := false
+	m = m[:len(next)]
+	x = x[:len(next)]
+	for i, v := range next {
+		if d := v - x[i]; d > m[i] {
+			next[i], limited = x[i]+m[i], true
+		} else if d < -m[i] {
+			next[i], limited = x[i]-m[i], true
+		}
+	}
+	return limited
+}
+
+// override replaces the iterate by x (already validated by the caller) and
+// restarts the Polyak–Ruppert average, whose earlier iterates no longer
+// describe where the iteration is. The step counter and the gain index are
+// kept; the previous measurement of an adaptive gain is forgotten.
+func (c *core) override(x []float64) {
+	copy(c.x, x)
+	clear(c.avg)
+	c.nAvg = 0
+	c.hasPrev = false
+	c.active, c.limited = false, false
+}
+
+// coreState is the whole mutable state of a core: with the same gain,
+// burn-in, projection and limits, a core restored from it continues exactly
+// as the original would have. Slices are copies owned by the state.
+type coreState struct {
+	X       []float64
+	Average []float64 // length d; meaningful when NAvg > 0
+	NAvg    int
+	Steps   int
+	GainIdx int
+	Prev    []float64 // previous measurement of an adaptive gain, or nil
+	Active  bool
+	Limited bool
+}
+
+// state returns a copy of the core's state.
+func (c *core) state() coreState {
+	s := coreState{
+		X:       append([]float64(nil), c.x...),
+		Average: append([]float64(nil), c.avg[:len(c.x)]...),
+		NAvg:    c.nAvg,
+		Steps:   c.steps,
+		GainIdx: c.gainIdx,
+		Active:  c.active,
+		Limited: c.limited,
+	}
+	if c.adapt != nil && c.hasPrev {
+		s.Prev = append([]float64(nil), c.prev...)
+	}
+	return s
+}
+
+// setState replaces the core's state by s, which the caller has validated
+// (lengths equal to the dimension, finite values, counters ≥ 0, NAvg ≤
+// Steps). It allocates nothing.
+func (c *core) setState(s coreState) {
+	copy(c.x, s.X)
+	copy(c.avg, s.Average)
+	c.nAvg = s.NAvg
+	c.steps = s.Steps
+	c.gainIdx = s.GainIdx
+	c.hasPrev = false
+	if c.adapt != nil && s.Prev != nil {
+		copy(c.prev, s.Prev)
+		c.hasPrev = true
+	}
+	c.active, c.limited = s.Active, s.Limited
 }

@@ -5,7 +5,11 @@
 //
 // and the drivers that feed it measurements Y_k. [RobbinsMonro] pulls
 // measurements of a noisy field from an oracle (package oracle) to find its
-// root. The gain a_k comes from package schedule; Π is an optional
+// root. [Tuner] is the push side: a long-lived object inside a running
+// service that publishes the current parameter to any number of goroutines
+// and is handed the measurements they observed at it; [QuantileTuner] and
+// [SetpointTuner] wrap it for the two commonest service targets (a timeout
+// at a target quantile, a knob that holds a measured level at a setpoint). The gain a_k comes from package schedule; Π is an optional
 // [Projection] such as [Box]; x̄_n is the Polyak–Ruppert average (Polyak &
 // Juditsky 1992, "Acceleration of stochastic approximation by averaging",
 // SIAM J. Control Optim. 30(4)), which for gains decaying slower than 1/k
@@ -37,15 +41,29 @@
 //
 // A driver call runs on the calling goroutine. Oracles, schedules and
 // projections may be shared between concurrent runs only if they are safe
-// for concurrent use; those of this module are.
+// for concurrent use; those of this module are. A [Tuner] is safe for
+// concurrent use: reads of the parameter take no lock and allocate nothing,
+// reports serialise on one short critical section (see Tuner).
 //
 // # Cautions for live systems
 //
-// When the parameter being tuned drives a production system, bound it (a
-// Box projection, Settings.MaxAbs), start from a conservative value, watch
-// the iterate and the measurements, and keep a manual override that takes
-// the system out of the loop. Stochastic approximation follows noisy
-// measurements by design: a broken measurement path moves the parameter
-// just as confidently as a working one. Tuning a live system is at the
-// operator's risk.
+// When the parameter being tuned drives a production system:
+//
+//   - Bound it: a Box projection (TunerSettings.Projection) with limits the
+//     system is known to survive, and TunerSettings.MaxChange so that one
+//     bad report cannot move it far.
+//   - Start conservatively: a starting point that is safe if tuning never
+//     moves it (a generous timeout, a low concurrency limit), and a gain
+//     small enough that the time constant 1/(a·slope) spans many reports.
+//   - Watch it: export Tuner.Stats and the values seen by
+//     TunerSettings.OnUpdate; alert on the parameter sitting at a bound, on
+//     many rejected (non-finite) or stale reports, and on the measured level
+//     itself, not only on the parameter.
+//   - Keep a manual override: Tuner.Freeze stops tuning, Tuner.Override sets
+//     the value by hand, Tuner.Snapshot and Tuner.Restore carry the state
+//     over restarts; practise using them before they are needed.
+//
+// Stochastic approximation follows noisy measurements by design: a broken
+// measurement path moves the parameter just as confidently as a working
+// one. Tuning a live system is at the operator's risk.
 package sa

@@ -1,0 +1,562 @@
+package sa
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"sync"
+	"sync/atomic"
+
+	"github.com/stochroot/stochroot/schedule"
+)
+
+// DefaultMaxLag is the staleness bound used when TunerSettings.MaxLag is 0.
+const DefaultMaxLag = 16
+
+// CurrentOnly, as TunerSettings.MaxLag, applies only reports taken at the
+// current version and drops every older one.
+const CurrentOnly = -1
+
+// Errors of the push tuner. Restore errors wrap ErrSnapshot (and, for a
+// snapshot written by a newer format, ErrSnapshotVersion as well).
+var (
+	// ErrClosed reports a call that changes a tuner after Close.
+	ErrClosed = errors.New("sa: tuner is closed")
+	// ErrFutureVersion reports a measurement that claims to be taken at a
+	// version the tuner has not published yet: a bug in the caller, which
+	// must pass the version returned by Param.
+	ErrFutureVersion = errors.New("sa: report for a version not yet published")
+	// ErrOutOfBounds reports a starting point or override outside the
+	// projection set or beyond MaxAbs.
+	ErrOutOfBounds = errors.New("sa: parameter outside its bounds")
+	// ErrSnapshot is wrapped by every error of Restore.
+	ErrSnapshot = errors.New("sa: unusable snapshot")
+	// ErrSnapshotVersion reports a snapshot whose format version this
+	// build does not know (written by a newer release).
+	ErrSnapshotVersion = errors.New("sa: unknown snapshot format version")
+)
+
+// TunerSettings configures a [Tuner]. The zero value of every field except
+// Gain is a default stated in the field's comment. NewTuner copies what it
+// keeps; later changes to the caller's slices have no effect.
+type TunerSettings struct {
+	// Gain is the gain sequence a_k; required. A constant gain
+	// (schedule.Constant) tracks a drifting target; a decreasing gain with
+	// averaging (schedule.Power, Exponent in (1/2, 1)) converges on a fixed
+	// one.
+	Gain schedule.Schedule
+
+	// Projection, if not nil, is applied after every update and bounds the
+	// published parameter; use a Box. A live system should always have
+	// one. The starting point and overrides must lie inside it.
+	Projection Projection
+
+	// MaxChange, if not nil, has one entry per coordinate and bounds every
+	// update: |x_{k+1,i} − x_{k,i}| ≤ MaxChange[i], applied before the
+	// projection. Entries must be > 0 (math.Inf(1) for no limit on that
+	// coordinate). nil means no limit.
+	MaxChange []float64
+
+	// MaxLag is the staleness rule: a report taken at version v is applied
+	// when the current version c satisfies c − v ≤ MaxLag (and no override
+	// or restore happened after v), and dropped otherwise. 0 means
+	// DefaultMaxLag; CurrentOnly applies only reports at the current
+	// version.
+	MaxLag int
+
+	// BurnIn is the number of updates left out of the Polyak–Ruppert
+	// average (see Settings.BurnIn). 0 averages from the first update.
+	BurnIn int
+
+	// MaxAbs, if > 0, rejects an update that would give |x_i| > MaxAbs
+	// (with ErrDiverged; the parameter stays). 0 checks only finiteness.
+	MaxAbs float64
+
+	// OnUpdate, if not nil, is called after every change of the published
+	// parameter (update, override, restore), in version order, on the
+	// goroutine that caused it and while the tuner's update lock is held.
+	// It must be quick (count, copy, hand off to a channel with a default
+	// case) and must not call methods of the tuner other than Param and
+	// Param1. The slices in Update are valid only during the call. Readers
+	// of the parameter never wait for it.
+	OnUpdate func(u Update)
+}
+
+// resolve validates s for dimension d and returns the copy with defaults
+// filled in and the caller's slices copied.
+func (s TunerSettings) resolve(d int) (TunerSettings, error) {
+	if s.Gain == nil {
+		return s, settingsErr("TunerSettings.Gain is nil: a gain schedule is required, for example schedule.Constant(0.05)")
+	}
+	if v, ok := s.Gain.(schedule.Validator); ok {
+		if err := v.Validate(); err != nil {
+			return s, settingsErr("TunerSettings.Gain: %v", err)
+		}
+	}
+	if s.MaxLag < 0 && s.MaxLag != CurrentOnly {
+		return s, settingsErr("TunerSettings.MaxLag = %d: must be ≥ 0 or CurrentOnly", s.MaxLag)
+	}
+	if s.MaxLag == 0 {
+		s.MaxLag = DefaultMaxLag
+	}
+	if s.BurnIn < 0 {
+		return s, settingsErr("TunerSettings.BurnIn = %d: must be ≥ 0", s.BurnIn)
+	}
+	if !(s.MaxAbs >= 0) || math.IsInf(s.MaxAbs, 0) {
+		return s, settingsErr("TunerSettings.MaxAbs = %v: must be finite and ≥ 0", s.MaxAbs)
+	}
+	if s.MaxChange != nil {
+		if len(s.MaxChange) != d {
+			return s, fmt.Errorf("%w: TunerSettings.MaxChange has %d entries for dimension %d", ErrDimension, len(s.MaxChange), d)
+		}
+		for i, m := range s.MaxChange {
+			if !(m > 0) {
+				return s, settingsErr("TunerSettings.MaxChange[%d] = %v: must be > 0 (math.Inf(1) for no limit)", i, m)
+			}
+		}
+		s.MaxChange = append([]float64(nil), s.MaxChange...)
+	}
+	if b, ok := s.Projection.(Box); ok {
+		s.Projection = Box{Lower: append([]float64(nil), b.Lower...), Upper: append([]float64(nil), b.Upper...)}
+	}
+	if v, ok := s.Projection.(validator); ok {
+		if err := v.validate(d); err != nil {
+			return s, err
+		}
+	}
+	return s, nil
+}
+
+// Outcome says what a report did.
+type Outcome int
+
+const (
+	// Rejected: the report was refused with an error (non-finite or
+	// wrong-length measurement, future version, closed tuner, an update
+	// the core could not apply). The parameter is unchanged.
+	Rejected Outcome = iota
+	// Applied: the measurement updated the parameter.
+	Applied
+	// Stale: dropped under the staleness rule (TunerSettings.MaxLag).
+	Stale
+	// Frozen: dropped because the tuner is frozen.
+	Frozen
+)
+
+var outcomeNames = [...]string{Rejected: "rejected", Applied: "applied", Stale: "stale", Frozen: "frozen"}
+
+// String returns the outcome's name.
+func (o Outcome) String() string {
+	if o >= 0 && int(o) < len(outcomeNames) {
+		return outcomeNames[o]
+	}
+	return "unknown outcome"
+}
+
+// UpdateKind says what changed the parameter in an [Update].
+type UpdateKind int
+
+const (
+	// StepUpdate: a reported measurement was applied.
+	StepUpdate UpdateKind = iota + 1
+	// OverrideUpdate: Override set the parameter.
+	OverrideUpdate
+	// RestoreUpdate: Restore replaced the state.
+	RestoreUpdate
+)
+
+// Update describes one change of the published parameter, for
+// TunerSettings.OnUpdate.
+type Update struct {
+	Kind    UpdateKind // what changed the parameter
+	Version uint64     // version published by this change
+	Step    int        // k of the update (StepUpdate); updates applied so far otherwise
+	Gain    float64    // a_k used (StepUpdate)
+	Lag     uint64     // current version minus the report's version before the update (StepUpdate)
+	X       []float64  // the new parameter; valid only during the call
+	Y       []float64  // the measurement (StepUpdate); valid only during the call
+	Active  bool       // the projection moved the new parameter
+	Limited bool       // MaxChange cut the update
+}
+
+// TunerStats counts what a tuner did with the reports it received. Every
+// call of Report lands in exactly one of the report counters, so
+// Applied+Stale+Frozen+NotFinite+Future+Failed+AfterClose is the number of
+// reports sent.
+type TunerStats struct {
+	Version uint64 // current published version
+	Steps   int    // updates applied by the core (k of the next update)
+
+	Applied    uint64 // reports that updated the parameter
+	Stale      uint64 // dropped under the staleness rule
+	Frozen     uint64 // dropped while frozen
+	NotFinite  uint64 // rejected: NaN or ±Inf entry
+	Future     uint64 // rejected: version not yet published
+	Failed     uint64 // rejected: wrong length, or the core refused the update (ErrDiverged, ErrGain)
+	AfterClose uint64 // rejected: tuner closed
+
+	Overrides uint64 // calls of Override that set the parameter
+	Restores  uint64 // calls of Restore that replaced the state
+}
+
+// Dropped returns Stale + Frozen.
+func (s TunerStats) Dropped() uint64 { return s.Stale + s.Frozen }
+
+// Reports returns the number of calls of Report counted.
+func (s TunerStats) Reports() uint64 {
+	return s.Applied + s.Stale + s.Frozen + s.NotFinite + s.Future + s.Failed + s.AfterClose
+}
+
+// ring is the number of published versions kept; a power of two. A reader
+// retries only if the tuner publishes ring−1 versions while it copies one.
+const (
+	ring     = 8
+	ringMask = ring - 1
+)
+
+// Tuner is a push-style stochastic-approximation tuner for a live system.
+// The system reads the current parameter with Param (lock-free, no
+// allocation), runs with it, and reports each measurement Y it observed,
+// together with the version it read, to Report; the tuner applies the
+// update of the shared core,
+//
+//	x_{k+1} = Π( clamp_{±MaxChange}( x_k − a_k·Y_k ) ),
+//
+// keeps the Polyak–Ruppert average, and publishes x_{k+1} as the next
+// version. Y follows the gradient sign convention: it should be positive
+// when the parameter is too high (see QuantileTuner and SetpointTuner for
+// the two common cases).
+//
+// # Versions and staleness
+//
+// Every change of the parameter publishes a new version (0 is the starting
+// point). A measurement taken at version v arrives while the tuner is at
+// version c ≥ v. It is applied (with a delay of c − v updates) when
+// c − v ≤ MaxLag and no Override or Restore happened after v; otherwise it
+// is dropped and counted as Stale. Bounded delays keep the recursion's
+// limit: the delayed terms differ from the current ones by at most MaxLag
+// gain-sized steps (Kushner & Yin 2003, "Stochastic Approximation and
+// Recursive Algorithms and Applications", 2nd ed., Springer, ch. 12 on
+// delayed and asynchronous measurements; from memory). A version from the
+// future (v > c) is a caller bug and is rejected with ErrFutureVersion.
+//
+// # Publication
+//
+// Published values live in a ring of 8 preallocated slots; version v is in
+// slot v mod 8, and every change publishes exactly the next version. The
+// writer stores the new values into their slot (atomically, number by
+// number) and then stores the new current version. A reader loads the
+// current version v, copies slot v mod 8, and loads the current version
+// again: if it is below v+7, the writer cannot yet have started to
+// overwrite that slot (it writes version v+8 only after publishing v+7, and
+// Go's atomic operations are sequentially consistent), so the copy is
+// exactly version v; otherwise the reader starts over. Publishing therefore
+// costs d+1 atomic stores and no allocation (an atomic pointer to a fresh
+// immutable value would allocate once per update), readers never block
+// the writer or each other, and a reader retries only when 7 updates
+// happen while it copies d numbers.
+//
+// # Concurrency
+//
+// All methods are safe for concurrent use. Param and Param1 take no lock.
+// Report, Override, Restore, Freeze, Resume, Close, Snapshot, Average and
+// Stats serialise on one mutex: updates are sequential by nature, each
+// starting from the last, and the critical section is a few dozen
+// nanoseconds for a small dimension.
+type Tuner struct {
+	d      int
+	stride int // distance between slots in vals (cache-line multiple)
+
+	cur  atomic.Uint64   // current published version
+	vals []atomic.Uint64 // Float64bits of the published values, ring slots of stride numbers
+
+	mu      sync.Mutex
+	c       *core
+	set     TunerSettings
+	maxLag  uint64
+	ybuf    []float64
+	version uint64 // == cur, written under mu
+	barrier uint64 // reports before this version are stale
+	frozen  bool
+	closed  bool
+	stats   TunerStats
+}
+
+// NewTuner returns a tuner that starts at x0 (copied) with version 0. It
+// returns an error wrapping ErrDimension for an empty x0, ErrSettings for
+// invalid settings (naming the field), ErrNotFinite for a non-finite x0 and
+// ErrOutOfBounds when x0 lies outside the projection or beyond MaxAbs.
+func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
+	d := len(x0)
+	if d == 0 {
+		return nil, fmt.Errorf("%w: starting point has dimension 0", ErrDimension)
+	}
+	rs, err := s.resolve(d)
+	if err != nil {
+		return nil, err
+	}
+	if err := checkPoint(x0, rs); err != nil {
+		return nil, fmt.Errorf("sa: starting point: %w", err)
+	}
+	t := &Tuner{
+		d:      d,
+		stride: (d + 7) &^ 7,
+		c:      newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs),
+		set:    rs,
+		ybuf:   make([]float64, d),
+	}
+	t.c.maxChange = rs.MaxChange
+	if rs.MaxLag != CurrentOnly {
+		t.maxLag = uint64(rs.MaxLag)
+	}
+	t.vals = make([]atomic.Uint64, ring*t.stride)
+	t.publish()
+	return t, nil
+}
+
+// checkPoint reports whether x is finite and inside the bounds of s.
+func checkPoint(x []float64, s TunerSettings) error {
+	for i, v := range x {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return fmt.Errorf("%w: x[%d] = %v", ErrNotFinite, i, v)
+		}
+		if s.MaxAbs > 0 && math.Abs(v) > s.MaxAbs {
+			return fmt.Errorf("%w: |x[%d]| = %v exceeds MaxAbs = %v", ErrOutOfBounds, i, math.Abs(v), s.MaxAbs)
+		}
+	}
+	if s.Projection != nil {
+		p := append([]float64(nil), x...)
+		if s.Projection.Project(p) {
+			return fmt.Errorf("%w: the projection moves %v to %v", ErrOutOfBounds, x, p)
+		}
+	}
+	return nil
+}
+
+// publish stores the core's iterate as version t.version, which must be
+// the previous version plus one (or 0 for the first). Called with mu held
+// (or before the tuner is shared).
+func (t *Tuner) publish() {
+	v := t.version
+	vals := t.vals[int(v&ringMask)*t.stride:][:t.d]
+	for j, x := range t.c.x {
+		vals[j].Store(math.Float64bits(x))
+	}
+	t.cur.Store(v)
+}
+
+// fresh reports whether a copy of version v's slot made before loading
+// now as the current version is exactly version v (see Publication).
+func fresh(v, now uint64) bool { return now-v < ring-1 }
+
+// Dim returns the dimension of the parameter.
+func (t *Tuner) Dim() int { return t.d }
+
+// Param copies the current parameter into dst and returns its version,
+// which the caller passes back to Report with the measurement taken at
+// this parameter. It takes no lock and allocates nothing. It panics if
+// len(dst) != Dim().
+func (t *Tuner) Param(dst []float64) (version uint64) {
+	if len(dst) != t.d {
+		panic("sa: Tuner.Param: len(dst) differs from the tuner's dimension")
+	}
+	for {
+		v := t.cur.Load()
+		vals := t.vals[int(v&ringMask)*t.stride:][:t.d]
+		for j := range dst {
+			dst[j] = math.Float64frombits(vals[j].Load())
+		}
+		if fresh(v, t.cur.Load()) {
+			return v
+		}
+	}
+}
+
+// Param1 returns the current parameter of a one-dimensional tuner and its
+// version. It takes no lock and allocates nothing. It panics if Dim() != 1.
+func (t *Tuner) Param1() (x float64, version uint64) {
+	if t.d != 1 {
+		panic("sa: Tuner.Param1 on a tuner of dimension other than 1")
+	}
+	for {
+		v := t.cur.Load()
+		x = math.Float64frombits(t.vals[int(v&ringMask)*t.stride].Load())
+		if fresh(v, t.cur.Load()) {
+			return x, v
+		}
+	}
+}
+
+// Report hands the tuner a measurement y taken while the system ran with
+// the parameter of the given version (as returned by Param). y is copied;
+// the caller may reuse it at once. Report allocates nothing unless it
+// returns an error.
+//
+// The checks run in this order, and the first that fails decides the
+// outcome (and the counter in Stats): closed tuner (Rejected, ErrClosed),
+// len(y) != Dim() (Rejected, ErrDimension), a NaN or ±Inf entry (Rejected,
+// ErrNotFinite), a version not yet published (Rejected, ErrFutureVersion),
+// the staleness rule (Stale, nil), frozen (Frozen, nil), and finally the
+// update itself (Applied, nil; or Rejected with the core's *StepError,
+// e.g. ErrDiverged). Whenever the outcome is not Applied the parameter is
+// unchanged.
+func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
+	t.mu.Lock()
+	if t.closed {
+		t.stats.AfterClose++
+		t.mu.Unlock()
+		return Rejected, ErrClosed
+	}
+	if len(y) != t.d {
+		t.stats.Failed++
+		t.mu.Unlock()
+		return Rejected, fmt.Errorf("%w: measurement has length %d, tuner dimension %d", ErrDimension, len(y), t.d)
+	}
+	for i, v := range y {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			t.stats.NotFinite++
+			t.mu.Unlock()
+			return Rejected, fmt.Errorf("%w: Y[%d] = %v (version %d)", ErrNotFinite, i, v, version)
+		}
+	}
+	if version > t.version {
+		cur := t.version
+		t.stats.Future++
+		t.mu.Unlock()
+		return Rejected, fmt.Errorf("%w: version %d, current %d", ErrFutureVersion, version, cur)
+	}
+	lag := t.version - version
+	if version < t.barrier || lag > t.maxLag {
+		t.stats.Stale++
+		t.mu.Unlock()
+		return Stale, nil
+	}
+	if t.frozen {
+		t.stats.Frozen++
+		t.mu.Unlock()
+		return Frozen, nil
+	}
+	copy(t.ybuf, y)
+	k := t.c.steps
+	if err := t.c.step(t.ybuf); err != nil {
+		if errors.Is(err, ErrNotFinite) {
+			t.stats.NotFinite++
+		} else {
+			t.stats.Failed++
+		}
+		t.mu.Unlock()
+		return Rejected, err
+	}
+	t.version++
+	t.publish()
+	t.stats.Applied++
+	if h := t.set.OnUpdate; h != nil {
+		h(Update{
+			Kind: StepUpdate, Version: t.version, Step: k, Gain: t.c.lastGain, Lag: lag,
+			X: t.c.x, Y: t.ybuf, Active: t.c.active, Limited: t.c.limited,
+		})
+	}
+	t.mu.Unlock()
+	return Applied, nil
+}
+
+// Report1 is Report for a one-dimensional tuner with the measurement y.
+func (t *Tuner) Report1(version uint64, y float64) (Outcome, error) {
+	b := [1]float64{y}
+	return t.Report(version, b[:])
+}
+
+// Override sets the parameter to x (copied), publishes it as a new version
+// and restarts the Polyak–Ruppert average. Reports taken before the
+// override are dropped as stale: they describe another parameter. The step
+// counter and the gain index continue; a frozen tuner stays frozen, so
+// Freeze followed by Override pins the parameter. x must be finite and
+// inside the bounds (ErrNotFinite, ErrOutOfBounds); it is an error after
+// Close. On error nothing changes.
+func (t *Tuner) Override(x []float64) error {
+	if len(x) != t.d {
+		return fmt.Errorf("%w: override has length %d, tuner dimension %d", ErrDimension, len(x), t.d)
+	}
+	if err := checkPoint(x, t.set); err != nil {
+		return fmt.Errorf("sa: override: %w", err)
+	}
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	if t.closed {
+		return ErrClosed
+	}
+	t.c.override(x)
+	t.version++
+	t.barrier = t.version
+	t.publish()
+	t.stats.Overrides++
+	t.notify(OverrideUpdate)
+	return nil
+}
+
+// notify calls the hook for a change other than a step; mu is held.
+func (t *Tuner) notify(kind UpdateKind) {
+	if h := t.set.OnUpdate; h != nil {
+		h(Update{Kind: kind, Version: t.version, Step: t.c.steps, X: t.c.x, Active: t.c.active, Limited: t.c.limited})
+	}
+}
+
+// Freeze stops updates: reports are dropped and counted as Frozen until
+// Resume. The parameter stays readable and Override still works.
+func (t *Tuner) Freeze() {
+	t.mu.Lock()
+	t.frozen = true
+	t.mu.Unlock()
+}
+
+// Resume undoes Freeze.
+func (t *Tuner) Resume() {
+	t.mu.Lock()
+	t.frozen = false
+	t.mu.Unlock()
+}
+
+// IsFrozen reports whether the tuner is frozen.
+func (t *Tuner) IsFrozen() bool {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	return t.frozen
+}
+
+// Close ends tuning: later calls of Report, Override and Restore return
+// ErrClosed. Param, Snapshot, Average and Stats keep working, so the
+// system can go on running with the last parameter. Close is idempotent
+// and always returns nil.
+func (t *Tuner) Close() error {
+	t.mu.Lock()
+	t.closed = true
+	t.mu.Unlock()
+	return nil
+}
+
+// Average copies the Polyak–Ruppert average of the parameter into dst and
+// returns how many iterates it holds; with none yet (0 returned) it copies
+// the current parameter. It panics if len(dst) != Dim().
+func (t *Tuner) Average(dst []float64) int {
+	if len(dst) != t.d {
+		panic("sa: Tuner.Average: len(dst) differs from the tuner's dimension")
+	}
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	if t.c.nAvg == 0 {
+		copy(dst, t.c.x)
+		return 0
+	}
+	copy(dst, t.c.avg)
+	return t.c.nAvg
+}
+
+// Stats returns the tuner's counters.
+func (t *Tuner) Stats() TunerStats {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	s := t.stats
+	s.Version = t.version
+	s.Steps = t.c.steps
+	return s
+}
