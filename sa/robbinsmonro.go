@@ -28,7 +28,7 @@ const (
 // dimension); measure −h otherwise.
 //
 // The run stops on the first of: s.MaxSteps steps, the measurement budget
-// s.MaxMeasurements, cancellation of ctx (checked before every step), or a
+// s.MaxMeasurements, the precision stop s.Precision, cancellation of ctx (checked before every step), or a
 // failed step (an oracle error, a non-finite measurement, a bad gain, a
 // diverging iterate). Budgets are not errors: err is nil and Result.Reason
 // says which budget ended the run. On cancellation err wraps ctx.Err().
@@ -72,6 +72,7 @@ func RobbinsMonro(ctx context.Context, h oracle.Field, x0 []float64, s Settings)
 // measure at the current iterate, apply the update.
 func runPull(ctx context.Context, c *core, h oracle.Field, y []float64, rng *rand.Rand, perCall int, r *Result) error {
 	maxSteps, maxMeas := r.Settings.MaxSteps, r.Settings.MaxMeasurements
+	c.configure(r.Settings, perCall)
 	done := ctx.Done()
 	for {
 		if maxSteps != NoLimit && c.steps >= maxSteps {
@@ -99,6 +100,10 @@ func runPull(ctx context.Context, c *core, h oracle.Field, y []float64, rng *ran
 		if err := c.step(y); err != nil {
 			r.Reason = Failed
 			return err
+		}
+		if c.precise() {
+			r.Reason = Precise
+			return nil
 		}
 	}
 }
