@@ -166,6 +166,9 @@ func (t *Trace) due(steps int) bool { return steps%t.every == 0 }
 func (t *Trace) record(c *core) {
 	if t.n == t.max {
 		t.thin()
+		if !t.due(c.steps) {
+			return
+		}
 	}
 	t.data = t.data[:(t.n+1)*t.cols]
 	row := t.data[t.n*t.cols:]
