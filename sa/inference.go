@@ -43,6 +43,10 @@ const MaxFullCovariance = 1000
 // DefaultLevel is the confidence level used when Inference.Level is 0.
 const DefaultLevel = 0.95
 
+// DefaultBatchScale is the batch scale N used when Inference.BatchScale
+// is 0.
+const DefaultBatchScale = 3
+
 // DefaultMinBatches is the number of complete batches needed before error
 // bars are reported when Inference.MinBatches is 0.
 const DefaultMinBatches = 10
@@ -101,9 +105,14 @@ type Inference struct {
 	// over one) with 1/2 < Exponent < 1, and 0.6 otherwise.
 	BatchExponent float64
 
-	// BatchScale is N in the batch ends above, > 0. 0 means 1. Larger
-	// values give longer, fewer batches: less bias from correlated batch
-	// means, more variance in Σ̂.
+	// BatchScale is N in the batch ends above, > 0. 0 means
+	// DefaultBatchScale (3). Larger values give longer, fewer batches: less
+	// bias from correlated batch means, more variance in Σ̂, and error bars
+	// later. Smaller values make batches shorter than the time the
+	// iterates take to forget, and the intervals too narrow: on least
+	// squares with d = 5 (the reference test), nominal 95% intervals
+	// covered 0.91–0.92 with N = 1 and 0.937–0.947 with N = 2 at
+	// n = 100000 steps, 0.943–0.953 with N = 3.
 	BatchScale float64
 
 	// MinBatches is the number of complete batches (after batch 0) needed
@@ -140,7 +149,7 @@ func (in Inference) resolve(d int, g schedule.Schedule) (Inference, error) {
 		return in, settingsErr("Inference.BatchExponent = %v: must lie strictly between 0 and 1", in.BatchExponent)
 	}
 	if in.BatchScale == 0 {
-		in.BatchScale = 1
+		in.BatchScale = DefaultBatchScale
 	}
 	if !(in.BatchScale > 0) || math.IsInf(in.BatchScale, 0) {
 		return in, settingsErr("Inference.BatchScale = %v: must be finite and > 0", in.BatchScale)

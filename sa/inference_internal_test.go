@@ -109,7 +109,7 @@ func TestStepAllocsWithInference(t *testing.T) {
 		const d = 8
 		s, err := Settings{
 			Gain:      schedule.Power{Scale: 0.5, Exponent: 0.6},
-			Inference: Inference{Covariance: mode, MinBatches: 2},
+			Inference: Inference{Covariance: mode, MinBatches: 2, BatchScale: 1},
 			Precision: &Precision{Absolute: 1e-12},
 			Trace:     &Tracing{Every: 3, Max: 16},
 		}.resolve(d)

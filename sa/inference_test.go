@@ -218,7 +218,7 @@ func TestTrace(t *testing.T) {
 
 	// CSV: header, one row per record, values that read back exactly, empty
 	// cells for values that do not exist yet.
-	s.MaxSteps, s.Trace, s.BurnIn = 3000, &sa.Tracing{Every: 100}, 0
+	s.MaxSteps, s.Trace, s.BurnIn = 10000, &sa.Tracing{Every: 500}, 0
 	r, err = sa.RobbinsMonro(context.Background(), noisyLinear(root), []float64{0, 0}, s)
 	require.NoError(t, err)
 	var buf bytes.Buffer

@@ -1,0 +1,48 @@
+package saplot
+
+import (
+	"image/color"
+
+	"gonum.org/v1/plot"
+	"gonum.org/v1/plot/plotter"
+	"gonum.org/v1/plot/vg"
+)
+
+// palette holds the line colours (dark, readable on white and in grey).
+var palette = []color.RGBA{
+	{R: 0x99, G: 0x99, B: 0x99, A: 0xff}, // iterate: grey
+	{R: 0x1f, G: 0x4e, B: 0x9c, A: 0xff}, // average: blue
+	{R: 0xc2, G: 0x41, B: 0x0c, A: 0xff}, // half-widths / band: orange
+	{R: 0x1b, G: 0x7a, B: 0x3a, A: 0xff}, // truth: green
+}
+
+// fade returns palette colour k at low opacity, for bands.
+func fade(k int) color.Color {
+	c := palette[k]
+	c.A = 0x50
+	// Premultiplied alpha.
+	c.R = uint8(uint16(c.R) * 0x50 / 0xff)
+	c.G = uint8(uint16(c.G) * 0x50 / 0xff)
+	c.B = uint8(uint16(c.B) * 0x50 / 0xff)
+	return c
+}
+
+// addLine adds a line in palette colour k (dashed if asked) with a legend
+// entry; an empty series is skipped.
+func addLine(pl *plot.Plot, xys plotter.XYs, name string, k int, dashed bool) error {
+	if len(xys) == 0 {
+		return nil
+	}
+	l, err := plotter.NewLine(xys)
+	if err != nil {
+		return err
+	}
+	l.Color = palette[k]
+	l.Width = vg.Points(1.2)
+	if dashed {
+		l.Dashes = []vg.Length{vg.Points(5), vg.Points(3)}
+	}
+	pl.Add(l)
+	pl.Legend.Add(name, l)
+	return nil
+}
