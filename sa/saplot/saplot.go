@@ -134,17 +134,25 @@ func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) erro
 	}
 	var xs, as, lo, hi plotter.XYs
 	first, last := math.Inf(1), 0.0
+	ymin, ymax := math.Inf(1), math.Inf(-1) // of the average, band and truth
+	widen := func(v float64) { ymin, ymax = math.Min(ymin, v), math.Max(ymax, v) }
 	for p := range tr.All() {
 		m := float64(max(p.Measurements, 1))
 		first, last = math.Min(first, m), math.Max(last, m)
 		xs = append(xs, plotter.XY{X: m, Y: p.X[i]})
 		if p.Average != nil {
 			as = append(as, plotter.XY{X: m, Y: p.Average[i]})
+			widen(p.Average[i])
 		}
 		if p.HalfWidth != nil {
 			lo = append(lo, plotter.XY{X: m, Y: p.Average[i] - p.HalfWidth[i]})
 			hi = append(hi, plotter.XY{X: m, Y: p.Average[i] + p.HalfWidth[i]})
+			widen(p.Average[i] - p.HalfWidth[i])
+			widen(p.Average[i] + p.HalfWidth[i])
 		}
+	}
+	if truth != nil {
+		widen(truth[i])
 	}
 	pl := plot.New()
 	pl.Title.Text = o.Title
@@ -155,7 +163,11 @@ func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) erro
 	pl.Y.Label.Text = fmt.Sprintf("x_%d", i+1)
 	pl.X.Scale = plot.LogScale{}
 	pl.X.Tick.Marker = plot.LogTicks{Prec: -1}
+	pl.Y.Tick.Marker = preciseTicks{}
 	pl.Legend.Top = true
+	if err := addLine(pl, xs, "iterate", 0, false); err != nil {
+		return err
+	}
 	if len(lo) > 1 {
 		// The band: upper edge forward, lower edge back.
 		ring := make(plotter.XYs, 0, 2*len(lo))
@@ -172,9 +184,6 @@ func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) erro
 		pl.Add(band)
 		pl.Legend.Add(fmt.Sprintf("%g%% confidence band", 100*tr.Level()), band)
 	}
-	if err := addLine(pl, xs, "iterate", 0, false); err != nil {
-		return err
-	}
 	if err := addLine(pl, as, "average", 1, false); err != nil {
 		return err
 	}
@@ -183,6 +192,15 @@ func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) erro
 		if err := addLine(pl, tl, "truth", 3, true); err != nil {
 			return err
 		}
+	}
+	if len(as) > 0 {
+		// Frame the average and its band (set after Add, which widens the
+		// axes to every line); the noisier iterate is clipped.
+		pad := 0.1 * (ymax - ymin)
+		if pad == 0 {
+			pad = 0.1*math.Abs(ymax) + 1e-12
+		}
+		pl.Y.Min, pl.Y.Max = ymin-pad, ymax+4*pad // room for the legend
 	}
 	return save(pl, w, h, path)
 }
