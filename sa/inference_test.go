@@ -359,3 +359,38 @@ func TestReplicateBadInput(t *testing.T) {
 	_, err := sa.Replicate(ctx, sa.Replications{Runs: 4}, ok)
 	require.ErrorIs(t, err, context.Canceled)
 }
+
+// TestDiagonalMatchesFull: keeping only the diagonal gives the same
+// standard errors and intervals, bit for bit, as the full matrix.
+func TestDiagonalMatchesFull(t *testing.T) {
+	run := func(mode sa.CovarianceMode) sa.Result {
+		r, err := sa.RobbinsMonro(context.Background(), noisyLinear([]float64{1, 2, 3}), make([]float64, 3),
+			sa.Settings{Gain: schedule.Power{Scale: 1, Exponent: 0.6}, MaxSteps: 30000, Seed: 4, Inference: sa.Inference{Covariance: mode}})
+		require.NoError(t, err)
+		return r
+	}
+	full, diag := run(sa.CovarianceFull), run(sa.CovarianceDiagonal)
+	require.NoError(t, full.ErrorBars.Err())
+	require.NotNil(t, full.ErrorBars.Covariance)
+	require.Nil(t, diag.ErrorBars.Covariance)
+	require.Equal(t, full.ErrorBars.StdErr, diag.ErrorBars.StdErr)
+	require.Equal(t, full.ErrorBars.HalfWidth, diag.ErrorBars.HalfWidth)
+	require.Equal(t, full.Average, diag.Average)
+	// Auto keeps the full matrix at small d.
+	require.NotNil(t, run(sa.CovarianceAuto).ErrorBars.Covariance)
+}
+
+// TestPrecisionRelative: a relative tolerance alone stops the run once
+// every half-width is below Relative·|x̄_i|.
+func TestPrecisionRelative(t *testing.T) {
+	root := []float64{50, -20}
+	r, err := sa.RobbinsMonro(context.Background(), noisyLinear(root), []float64{0, 0}, sa.Settings{
+		Gain: schedule.Power{Scale: 1, Exponent: 0.6}, MaxSteps: 1_000_000, BurnIn: 100,
+		Precision: &sa.Precision{Relative: 1e-3}, Seed: 8,
+	})
+	require.NoError(t, err)
+	require.Equal(t, sa.Precise, r.Reason)
+	for i, h := range r.ErrorBars.HalfWidth {
+		require.LessOrEqual(t, h, 1e-3*math.Abs(r.Average[i]))
+	}
+}
