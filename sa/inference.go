@@ -290,13 +290,19 @@ func (b *batchMeans) add(x, avg []float64) {
 
 // tick counts an iterate already added to sum and closes the batch when it
 // ends. The O(d²) work happens only when a batch closes.
+// The fast path is small enough to be inlined into the core's step.
 func (b *batchMeans) tick(avg []float64) {
 	b.closed = false
 	b.j++
 	b.count++
-	if b.j < b.nextEnd {
-		return
+	if b.j >= b.nextEnd {
+		b.rollOver(avg)
 	}
+}
+
+// rollOver closes the current batch (folding it in unless it is batch 0)
+// and starts the next one.
+func (b *batchMeans) rollOver(avg []float64) {
 	if b.m > 0 {
 		b.closeBatch()
 	}
