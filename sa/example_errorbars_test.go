@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"math/rand/v2"
+	"strings"
 
 	"github.com/stochroot/stochroot/oracle"
 	"github.com/stochroot/stochroot/sa"
@@ -62,4 +63,40 @@ func ExampleReplicate() {
 	fmt.Printf("root ≈ %.4g, 95%% interval [%.4g, %.4g] from %d runs (t quantile %.4g)\n", e.Center[0], lo, hi, e.Count, e.Quantile)
 	// Output:
 	// root ≈ 3.003, 95% interval [2.986, 3.021] from 10 runs (t quantile 2.262)
+}
+
+// A run traced every 500 steps, written as CSV. Half-widths are empty until
+// enough batches are complete.
+func ExampleTrace_WriteCSV() {
+	h := oracle.Scalar(func(x float64, rng *rand.Rand) (float64, error) {
+		return x - 3 + rng.NormFloat64(), nil
+	})
+	r, err := sa.RobbinsMonro(context.Background(), h, []float64{0}, sa.Settings{
+		Gain: schedule.Power{Scale: 1, Exponent: 0.6}, MaxSteps: 10000, Seed: 1,
+		Trace: &sa.Tracing{Every: 2000},
+	})
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	var b strings.Builder
+	if err := r.Trace.WriteCSV(&b); err != nil {
+		fmt.Println(err)
+		return
+	}
+	fmt.Print(strings.SplitN(b.String(), "\n", 2)[0], "\n")
+	for p := range r.Trace.All() {
+		if p.HalfWidth == nil {
+			fmt.Printf("step %d: average %.4g, no interval yet\n", p.Step, p.Average[0])
+			continue
+		}
+		fmt.Printf("step %d: average %.4g ± %.2g\n", p.Step, p.Average[0], p.HalfWidth[0])
+	}
+	// Output:
+	// step,measurements,gain,measurement_norm,x_1,average_1,half_width_1
+	// step 2000: average 2.984, no interval yet
+	// step 4000: average 3, no interval yet
+	// step 6000: average 3, no interval yet
+	// step 8000: average 2.993 ± 0.018
+	// step 10000: average 2.995 ± 0.015
 }

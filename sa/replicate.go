@@ -44,7 +44,8 @@ type RunFunc func(ctx context.Context, run int, seed uint64) (Result, error)
 // Replicated is the outcome of Replicate.
 type Replicated struct {
 	// ErrorBars are about the mean of the runs' estimates: Center is the
-	// mean, Covariance the sample covariance divided by R, DF = R − 1.
+	// mean, Covariance the sample covariance divided by R (nil when the
+	// dimension exceeds MaxFullCovariance), DF = R − 1.
 	ErrorBars ErrorBars
 	// Estimates[r] is the estimate of run r, Seeds[r] its seed and
 	// Reasons[r] why it stopped.
@@ -200,6 +201,19 @@ func meanErrorBars(xs [][]float64, level float64) ErrorBars {
 	for i := range e.Center {
 		e.Center[i] /= float64(R)
 	}
+	s := 1 / float64(R-1) / float64(R)
+	e.Quantile = tQuantile(e.DF, level)
+	for i := range d {
+		v := 0.0
+		for _, x := range xs {
+			v += (x[i] - e.Center[i]) * (x[i] - e.Center[i])
+		}
+		e.StdErr[i] = math.Sqrt(v * s)
+		e.HalfWidth[i] = e.Quantile * e.StdErr[i]
+	}
+	if d > MaxFullCovariance {
+		return e // as CovarianceAuto: the variances only
+	}
 	cov := make([]float64, d*d)
 	for _, x := range xs {
 		for i := range d {
@@ -209,7 +223,6 @@ func meanErrorBars(xs [][]float64, level float64) ErrorBars {
 			}
 		}
 	}
-	s := 1 / float64(R-1) / float64(R)
 	for i := range d {
 		for k := i; k < d; k++ {
 			cov[i*d+k] *= s
@@ -217,10 +230,5 @@ func meanErrorBars(xs [][]float64, level float64) ErrorBars {
 		}
 	}
 	e.Covariance = mat.NewSymDense(d, cov)
-	e.Quantile = tQuantile(e.DF, level)
-	for i := range d {
-		e.StdErr[i] = math.Sqrt(cov[i*d+i])
-		e.HalfWidth[i] = e.Quantile * e.StdErr[i]
-	}
 	return e
 }
