@@ -28,10 +28,13 @@ const (
 // dimension); measure −h otherwise.
 //
 // The run stops on the first of: s.MaxSteps steps, the measurement budget
-// s.MaxMeasurements, the precision stop s.Precision, cancellation of ctx (checked before every step), or a
-// failed step (an oracle error, a non-finite measurement, a bad gain, a
-// diverging iterate). Budgets are not errors: err is nil and Result.Reason
-// says which budget ended the run. On cancellation err wraps ctx.Err().
+// s.MaxMeasurements, the precision stop s.Precision (Reason Precise),
+// cancellation of ctx (checked before every step), or a failed step (an
+// oracle error, a non-finite measurement, a bad gain, a diverging iterate).
+// Budgets and the precision stop are not errors: err is nil and
+// Result.Reason says which rule ended the run. On cancellation err wraps
+// ctx.Err(). Result.ErrorBars holds the batch-means error bars of the
+// average (see Inference) and Result.Trace the trace asked for by s.Trace.
 //
 // The Result is filled in on every return, with the last accepted iterate.
 // x0 is copied and never modified. The oracle receives the stream
