@@ -394,3 +394,30 @@ func TestPrecisionRelative(t *testing.T) {
 		require.LessOrEqual(t, h, 1e-3*math.Abs(r.Average[i]))
 	}
 }
+
+// TestErrorBarsDeterministicAndCounted: the same seed gives the same error
+// bars and trace bit for bit, and a mini-batch oracle's measurements are
+// counted in the trace.
+func TestErrorBarsDeterministicAndCounted(t *testing.T) {
+	o := newStreamLSQ([]float64{1, 2, 3}, 0.3, 1, 4) // mini-batches of 4
+	run := func() sa.Result {
+		r, err := sa.RobbinsMonro(context.Background(), o, make([]float64, 3), sa.Settings{
+			Gain: schedule.Power{Scale: 1, Offset: 5, Exponent: 0.6}, MaxSteps: 12000, Seed: 21,
+			Trace: &sa.Tracing{Every: 1000},
+		})
+		require.NoError(t, err)
+		return r
+	}
+	a, b := run(), run()
+	require.NoError(t, a.ErrorBars.Err())
+	require.True(t, reflect.DeepEqual(a.ErrorBars, b.ErrorBars), "error bars differ between identical runs")
+	// Traces hold NaN for values that do not exist yet, so compare the CSV.
+	var ca, cb bytes.Buffer
+	require.NoError(t, a.Trace.WriteCSV(&ca))
+	require.NoError(t, b.Trace.WriteCSV(&cb))
+	require.Equal(t, ca.String(), cb.String(), "traces differ between identical runs")
+	require.Equal(t, 4*12000, a.Measurements)
+	for p := range a.Trace.All() {
+		require.Equal(t, 4*p.Step, p.Measurements)
+	}
+}
