@@ -113,7 +113,7 @@ type study struct {
 // Run length: with gain 1.5/(k+11)^0.6, N = 3 (the default) and n = 20000
 // steps (16 batches) the intervals are within the band, and with
 // STOCHROOT_LONG_TESTS=1 also at R = 2000 for n = 20000 and n = 100000.
-// With N = 1 they under-cover: measured 0.913–0.919 at n = 100000, R = 1000
+// With N = 1 they under-cover: measured 0.912–0.919 at n = 100000, R = 1000
 // (outside that band, 0.95 ± 0.021), because the batches are then shorter
 // than the time the iterates take to forget; see Inference.BatchScale.
 func TestReferenceBatchMeansCoverage(t *testing.T) {
