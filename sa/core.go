@@ -4,6 +4,8 @@ import (
 	"fmt"
 	"math"
 
+	"gonum.org/v1/gonum/floats"
+
 	"github.com/stochroot/stochroot/schedule"
 )
 
@@ -39,7 +41,15 @@ type core struct {
 	// the step). limited reports that the bound cut the last update.
 	maxChange []float64
 	limited   bool
-	lastGain  float64 // a_k of the last applied update
+
+	// Inference and tracing, switched on by configure; nil when off.
+	configured bool
+	inf        *batchMeans // batch-means error bars of avg
+	prec       *Precision  // stop once the error bars are this tight
+	trace      *Trace      // every-k-th-step record
+	perCall    int         // measurements per step, for the trace
+	lastGain   float64     // a_k of the last applied update
+	lastNorm   float64     // ‖Y_k‖ of the last update (tracing only)
 }
 
 // newCore copies x0 and prepares a core. The arguments must already be
@@ -122,11 +132,59 @@ func (c *core) step(y []float64) error {
 		c.nAvg++
 		w := 1 / float64(c.nAvg)
 		avg := c.avg[:len(next)]
-		for i, v := range next {
-			avg[i] += (v - avg[i]) * w
+		if b := c.inf; b != nil {
+			// The batch sum rides in the averaging loop: one pass over x.
+			sum, ref := b.sum[:len(next)], b.ref[:len(next)]
+			for i, v := range next {
+				avg[i] += (v - avg[i]) * w
+				sum[i] += v - ref[i]
+			}
+			b.tick(avg)
+		} else {
+			for i, v := range next {
+				avg[i] += (v - avg[i]) * w
+			}
+		}
+	}
+	if c.trace != nil {
+		c.lastGain, c.lastNorm = a, floats.Norm(y, 2)
+		if c.trace.due(c.steps) {
+			c.trace.record(c)
 		}
 	}
 	return nil
+}
+
+// configure switches on the inference, the precision stop and the trace
+// that the resolved settings s ask for; perCall is the number of
+// measurements one step uses. It allocates every buffer they need, so that
+// step still allocates nothing. Only the first call has an effect: the
+// pull loop calls it, and a driver that configures its core earlier (a
+// push tuner) keeps its configuration.
+func (c *core) configure(s Settings, perCall int) {
+	if c.configured {
+		return
+	}
+	c.configured = true
+	c.perCall = max(perCall, 1)
+	d := len(c.x)
+	if s.Inference.on() {
+		c.inf = newBatchMeans(d, s.Inference)
+		c.prec = s.Precision
+	}
+	if s.Trace != nil {
+		c.trace = newTrace(d, *s.Trace, s.Inference.Level)
+	}
+}
+
+// precise reports whether a batch closed on the last step and the error
+// bars now meet the precision stop. It costs O(1) on the other steps.
+func (c *core) precise() bool {
+	b := c.inf
+	if c.prec == nil || b == nil || !b.closed || !b.available() {
+		return false
+	}
+	return b.precise(c.prec, c.avg, c.nAvg)
 }
 
 // fill copies the core's state into r.
@@ -140,6 +198,17 @@ func (c *core) fill(r *Result) {
 	r.Averaged = c.nAvg
 	r.Steps = c.steps
 	r.Active = c.active
+	switch {
+	case c.inf != nil && c.nAvg > 0:
+		r.ErrorBars = c.inf.errorBars(c.avg, c.nAvg)
+	case c.inf != nil:
+		r.ErrorBars = ErrorBars{Level: c.inf.level, Assumes: batchMeansAssumes, Why: "no iterate has been averaged yet"}
+	default:
+		r.ErrorBars = ErrorBars{Why: "inference is off (Inference.Covariance = CovarianceOff)"}
+	}
+	if c.trace != nil {
+		r.Trace = c.trace.snapshot(c)
+	}
 }
 
 // clampChange moves next[i] to within ±m[i] of x[i] and reports whether any

@@ -28,6 +28,21 @@
 // the context's error). The [Result] is filled in on every return and holds
 // the last accepted iterate, which is never non-finite.
 //
+// # Error bars
+//
+// Every run reports, in Result.ErrorBars, the standard errors, covariance
+// and confidence intervals of its Polyak–Ruppert average from on-line batch
+// means over growing batches of its own iterates (Chen, Lee, Tong & Zhang
+// 2020, Ann. Statist. 48(1); see [Inference]), with a plain statement of
+// what they assume. They need no stored trajectory and no Hessian, add O(d)
+// work per step, and are "not yet available" ([ErrNotAvailable]) until
+// enough batches are complete. [Precision] stops a run once the intervals
+// are narrow enough. [Replicate] runs independent seeded copies on several
+// goroutines for intervals that assume nothing about the correlation within
+// a run. Settings.Trace records the run in bounded memory ([Trace]); the
+// sub-package saplot turns a trace into PNG plots without adding a plotting
+// dependency to this package.
+//
 // # Reproducibility
 //
 // Settings.Seed is the one seed of a run. Every random stream is derived
@@ -35,15 +50,17 @@
 // consumer, and the oracle receives its stream with every call. The same
 // seed, settings, starting point and oracle give the same Result bit for
 // bit, on every run and every machine of the same architecture (fused
-// multiply–add may change the last bits across architectures).
+// multiply–add may change the last bits across architectures). [Replicate]
+// gives the same answer whatever the number of workers.
 //
 // # Concurrency
 //
-// A driver call runs on the calling goroutine. Oracles, schedules and
-// projections may be shared between concurrent runs only if they are safe
-// for concurrent use; those of this module are. A [Tuner] is safe for
-// concurrent use: reads of the parameter take no lock and allocate nothing,
-// reports serialise on one short critical section (see Tuner).
+// A driver call runs on the calling goroutine. [Replicate] calls its
+// RunFunc from several goroutines. Oracles, schedules and projections may
+// be shared between concurrent runs only if they are safe for concurrent
+// use; those of this module are. A [Tuner] is safe for concurrent use:
+// reads of the parameter take no lock and allocate nothing, reports
+// serialise on one short critical section (see Tuner).
 //
 // # Cautions for live systems
 //

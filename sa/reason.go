@@ -16,6 +16,9 @@ const (
 	Cancelled
 	// Failed: a step failed; the returned error says why.
 	Failed
+	// Precise: every coordinate's confidence half-width met the tolerance
+	// of Settings.Precision.
+	Precise
 )
 
 var reasonNames = [...]string{
@@ -24,6 +27,7 @@ var reasonNames = [...]string{
 	MeasurementLimit: "measurement budget reached",
 	Cancelled:        "cancelled",
 	Failed:           "failed",
+	Precise:          "confidence intervals within tolerance",
 }
 
 // String returns a short description of the reason.

@@ -19,6 +19,13 @@ type Result struct {
 	// Active reports whether the projection moved the last iterate, i.e.
 	// the constraint was active at the end.
 	Active bool
+	// ErrorBars are the batch-means standard errors, covariance and
+	// confidence intervals of Average (see Inference). Check Available (or
+	// Err) before use: they need Inference.MinBatches complete batches.
+	ErrorBars ErrorBars
+	// Trace is the record of the run when Settings.Trace asked for one,
+	// and nil otherwise.
+	Trace *Trace
 	// Reason says why the run stopped.
 	Reason Reason
 	// Seed is the seed the run used; Settings holds the resolved settings.

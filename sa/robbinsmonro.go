@@ -29,10 +29,13 @@ const (
 // dimension); measure −h otherwise.
 //
 // The run stops on the first of: s.MaxSteps steps, the measurement budget
-// s.MaxMeasurements, cancellation of ctx (checked before every step), or a
-// failed step (an oracle error, a non-finite measurement, a bad gain, a
-// diverging iterate). Budgets are not errors: err is nil and Result.Reason
-// says which budget ended the run. On cancellation err wraps ctx.Err().
+// s.MaxMeasurements, the precision stop s.Precision (Reason Precise),
+// cancellation of ctx (checked before every step), or a failed step (an
+// oracle error, a non-finite measurement, a bad gain, a diverging iterate).
+// Budgets and the precision stop are not errors: err is nil and
+// Result.Reason says which rule ended the run. On cancellation err wraps
+// ctx.Err(). Result.ErrorBars holds the batch-means error bars of the
+// average (see Inference) and Result.Trace the trace asked for by s.Trace.
 //
 // The Result is filled in on every return, with the last accepted iterate.
 // x0 is copied and never modified. The oracle receives the stream
@@ -89,6 +92,7 @@ func NewSolver(h oracle.Field, x0 []float64, s Settings) (*Solver, error) {
 	}
 	sv.h = h
 	sv.c = newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs)
+	sv.c.configure(rs, sv.perCall) // error bars and trace also for Step
 	sv.rng = rand.New(rand.NewPCG(rs.Seed, streamMeasure))
 	sv.y = make([]float64, d)
 	return sv, nil
@@ -149,6 +153,7 @@ func (sv *Solver) Result() Result {
 // measure at the current iterate, apply the update.
 func runPull(ctx context.Context, c *core, h oracle.Field, y []float64, rng *rand.Rand, perCall int, r *Result) error {
 	maxSteps, maxMeas := r.Settings.MaxSteps, r.Settings.MaxMeasurements
+	c.configure(r.Settings, perCall)
 	done := ctx.Done()
 	for {
 		if maxSteps != NoLimit && c.steps >= maxSteps {
@@ -176,6 +181,10 @@ func runPull(ctx context.Context, c *core, h oracle.Field, y []float64, rng *ran
 		if err := c.step(y); err != nil {
 			r.Reason = Failed
 			return err
+		}
+		if c.precise() {
+			r.Reason = Precise
+			return nil
 		}
 	}
 }

@@ -274,3 +274,15 @@ func TestReasonString(t *testing.T) {
 		require.Equal(t, want, r.String())
 	}
 }
+
+func TestSolverStepHasErrorBars(t *testing.T) {
+	sv, err := sa.NewSolver(linear(1), []float64{0}, sa.Settings{Gain: schedule.Power{Scale: 1, Exponent: 0.6}, Trace: &sa.Tracing{Every: 100}})
+	require.NoError(t, err)
+	for range 30000 {
+		require.NoError(t, sv.Step())
+	}
+	r := sv.Result()
+	require.True(t, r.ErrorBars.Available, r.ErrorBars.Why)
+	require.NotNil(t, r.Trace)
+	require.Greater(t, r.Trace.Len(), 0)
+}

@@ -46,6 +46,20 @@ type Settings struct {
 	// iterates.
 	MaxAbs float64
 
+	// Inference configures the batch-means error bars of the average,
+	// reported in Result.ErrorBars. The zero value gives 95% intervals;
+	// CovarianceOff switches them off.
+	Inference Inference
+
+	// Precision, if not nil, stops the run with Reason Precise once every
+	// coordinate's confidence half-width is within tolerance (see
+	// Precision). It needs inference on.
+	Precision *Precision
+
+	// Trace, if not nil, records the run every Trace.Every steps into
+	// Result.Trace.
+	Trace *Tracing
+
 	// Seed is the one seed of the run; every random stream is derived from
 	// it (see the package documentation). The same seed gives the same
 	// result bit for bit. Zero is a valid seed.
@@ -82,6 +96,28 @@ func (s Settings) resolve(d int) (Settings, error) {
 		if err := v.validate(d); err != nil {
 			return s, err
 		}
+	}
+	in, err := s.Inference.resolve(d, s.Gain)
+	if err != nil {
+		return s, err
+	}
+	s.Inference = in
+	if s.Precision != nil {
+		if err := s.Precision.validate(); err != nil {
+			return s, err
+		}
+		if !in.on() {
+			return s, settingsErr("Settings.Precision is set but Inference.Covariance is CovarianceOff: a precision stop needs error bars")
+		}
+		p := *s.Precision // never share the caller's struct
+		s.Precision = &p
+	}
+	if s.Trace != nil {
+		t, err := s.Trace.resolve()
+		if err != nil {
+			return s, err
+		}
+		s.Trace = &t
 	}
 	return s, nil
 }

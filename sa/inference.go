@@ -1,0 +1,513 @@
+package sa
+
+import (
+	"errors"
+	"fmt"
+	"math"
+
+	"gonum.org/v1/gonum/mat"
+	"gonum.org/v1/gonum/stat/distuv"
+
+	"github.com/stochroot/stochroot/schedule"
+)
+
+// ErrNotAvailable reports error bars asked for before there is enough data
+// for them: fewer complete batches than Inference.MinBatches, inference
+// switched off, or fewer than two replications. It is never hidden behind
+// a NaN.
+var ErrNotAvailable = errors.New("sa: error bars not yet available")
+
+// CovarianceMode says how much of the covariance of the Polyak–Ruppert
+// average the batch-means estimator keeps.
+type CovarianceMode int
+
+const (
+	// CovarianceAuto keeps the full d×d matrix when d ≤ MaxFullCovariance
+	// and the diagonal otherwise.
+	CovarianceAuto CovarianceMode = iota
+	// CovarianceFull keeps the full d×d matrix: d² numbers, and O(d²) work
+	// each time a batch closes (a vanishing share of the steps).
+	CovarianceFull
+	// CovarianceDiagonal keeps the variances only: standard errors and
+	// intervals per coordinate, no correlations, O(d) memory.
+	CovarianceDiagonal
+	// CovarianceOff switches inference off: no error bars, no precision
+	// stop, no per-step cost.
+	CovarianceOff
+)
+
+// MaxFullCovariance is the largest dimension for which CovarianceAuto keeps
+// the full covariance matrix (512 KiB of float64 at this size).
+const MaxFullCovariance = 256
+
+// DefaultLevel is the confidence level used when Inference.Level is 0.
+const DefaultLevel = 0.95
+
+// DefaultBatchScale is the batch scale N used when Inference.BatchScale
+// is 0.
+const DefaultBatchScale = 3
+
+// DefaultMinBatches is the number of complete batches needed before error
+// bars are reported when Inference.MinBatches is 0.
+const DefaultMinBatches = 10
+
+// Inference configures the batch-means error bars of the Polyak–Ruppert
+// average. The zero value switches them on with 95% intervals and batches
+// matched to the gain.
+//
+// # Method
+//
+// The averaged iterates x_1, …, x_n (after the burn-in, numbered from 1)
+// are cut into consecutive batches whose lengths grow with n. Batch m ends
+// at iterate
+//
+//	e_m = ⌈ ((m+1)·N)^(1/(1−α)) ⌉,   m = 0, 1, 2, …
+//
+// (made strictly increasing), with α = BatchExponent and N = BatchScale.
+// This is the increasing-batch schedule of Chen, Lee, Tong & Zhang (2020,
+// "Statistical inference for model parameters in stochastic gradient
+// descent", Ann. Statist. 48(1), Sect. 4; from memory as to the equation
+// number), where α is the exponent of the gain a_k ∝ k^(−α): a batch that
+// ends at e is about N·e^α/(1−α) long, in step with the time over which
+// the iterates forget their past, which grows like 1/a_k. Batch 0 holds
+// the transient and is left out of the variance estimate, as in the paper.
+// With M complete batches of lengths n_m and means x̄⁽ᵐ⁾, m = 1…M, and
+// their length-weighted mean μ,
+//
+//	Σ̂ = 1/(M−1) · Σ_m n_m (x̄⁽ᵐ⁾ − μ)(x̄⁽ᵐ⁾ − μ)ᵀ,    Cov(x̄_n) ≈ Σ̂ / n,
+//
+// and the interval for coordinate i is x̄_n,i ± t_{M−1}((1+Level)/2)·√(Σ̂_ii/n).
+// Chen et al. divide by M; we divide by M − 1 and use Student's t with
+// M − 1 degrees of freedom, which is exact when the batch means are
+// independent and normal (a weighted sum of squares about the weighted mean
+// is then σ²·χ²_{M−1}), the finite-sample rule of batch means in
+// simulation output analysis (common practice). Both agree as M grows.
+//
+// The estimator is computed on line, as in Zhu, Chen & Wu (2023, "Online
+// covariance matrix estimation in stochastic gradient descent", JASA
+// 118(541)): no trajectory is stored, memory is O(d²) (O(d) for
+// CovarianceDiagonal), each step adds O(d) work and each batch close adds
+// O(d²) (a weighted Welford update; West 1979, "Updating mean and variance
+// estimates: an improved method", Comm. ACM 22(9)). Zhu et al.'s
+// overlapping batches would cost O(d²) on every step, which is why the
+// non-overlapping batches of Chen et al. are used here.
+type Inference struct {
+	// Level is the confidence level of the intervals, in (0, 1). 0 means
+	// DefaultLevel (0.95).
+	Level float64
+
+	// Covariance says how much of the covariance to keep. The zero value is
+	// CovarianceAuto.
+	Covariance CovarianceMode
+
+	// BatchExponent is α in the batch ends above, in (0, 1). 0 means the
+	// gain's exponent when Gain is a schedule.Power (or a schedule.Kesten
+	// over one) with 1/2 < Exponent < 1, and 0.6 otherwise.
+	BatchExponent float64
+
+	// BatchScale is N in the batch ends above, > 0. 0 means
+	// DefaultBatchScale (3). Larger values give longer, fewer batches: less
+	// bias from correlated batch means, more variance in Σ̂, and error bars
+	// later.
+	//
+	// The batches must be several times longer than the memory of the
+	// iterates, about 1/(a_k·λ) steps near step k for a field of slope λ
+	// (the smallest eigenvalue of the Jacobian at the root). For a gain
+	// Scale/(k+1+Offset)^α the ratio of batch length to memory is about
+	// N·Scale·λ/(1−α), whatever k. Measured on least squares with d = 5
+	// (the reference test, Scale·λ ≈ 0.8, α = 0.6), nominal 95% intervals
+	// covered 0.91–0.92 with N = 1 (ratio 2), 0.937–0.947 with N = 2 and
+	// 0.943–0.953 with N = 3 (ratio 6) at n = 100000 steps; in the bottling
+	// demo at ratio 4 they covered about 0.89. When the intervals matter,
+	// keep N·Scale·λ/(1−α) ≳ 6 or check them with Replicate.
+	BatchScale float64
+
+	// MinBatches is the number of complete batches (after batch 0) needed
+	// before error bars are reported and before a precision stop may fire;
+	// ≥ 2. 0 means DefaultMinBatches (10).
+	MinBatches int
+}
+
+// on reports whether inference is on in a resolved Inference.
+func (in Inference) on() bool { return in.Covariance != CovarianceOff }
+
+// resolve validates in for dimension d and gain g and fills in defaults.
+func (in Inference) resolve(d int, g schedule.Schedule) (Inference, error) {
+	switch in.Covariance {
+	case CovarianceAuto:
+		in.Covariance = CovarianceFull
+		if d > MaxFullCovariance {
+			in.Covariance = CovarianceDiagonal
+		}
+	case CovarianceFull, CovarianceDiagonal, CovarianceOff:
+	default:
+		return in, settingsErr("Inference.Covariance = %d: not a CovarianceMode", int(in.Covariance))
+	}
+	if in.Level == 0 {
+		in.Level = DefaultLevel
+	}
+	if !(in.Level > 0 && in.Level < 1) {
+		return in, settingsErr("Inference.Level = %v: a confidence level must lie strictly between 0 and 1", in.Level)
+	}
+	if in.BatchExponent == 0 {
+		in.BatchExponent = gainExponent(g)
+	}
+	if !(in.BatchExponent > 0 && in.BatchExponent < 1) {
+		return in, settingsErr("Inference.BatchExponent = %v: must lie strictly between 0 and 1", in.BatchExponent)
+	}
+	if in.BatchScale == 0 {
+		in.BatchScale = DefaultBatchScale
+	}
+	if !(in.BatchScale > 0) || math.IsInf(in.BatchScale, 0) {
+		return in, settingsErr("Inference.BatchScale = %v: must be finite and > 0", in.BatchScale)
+	}
+	switch {
+	case in.MinBatches == 0:
+		in.MinBatches = DefaultMinBatches
+	case in.MinBatches < 2:
+		return in, settingsErr("Inference.MinBatches = %d: an interval needs at least 2 batches (1 degree of freedom)", in.MinBatches)
+	}
+	return in, nil
+}
+
+// gainExponent returns the exponent α of a power gain when it lies in
+// (1/2, 1), and 0.6 otherwise.
+func gainExponent(g schedule.Schedule) float64 {
+	if k, ok := g.(schedule.Kesten); ok {
+		g = k.Base
+	}
+	if p, ok := g.(schedule.Power); ok && p.Exponent > 0.5 && p.Exponent < 1 {
+		return p.Exponent
+	}
+	return 0.6
+}
+
+// Precision stops a run once the error bars are tight enough: when a batch
+// closes (the only time the variance estimate changes; so the check costs
+// O(d) per batch, not per step) and at least Inference.MinBatches batches
+// are complete, the run stops with Reason Precise if for every coordinate i
+// the confidence half-width h_i satisfies
+//
+//	h_i ≤ Absolute   or   h_i ≤ Relative·|x̄_n,i|.
+//
+// A tolerance of 0 leaves that side out; at least one must be > 0.
+//
+// Stopping when an estimated error is small selects runs whose variance
+// estimate happened to come out low, so the intervals of a run stopped this
+// way cover somewhat less often than their nominal level; a larger
+// MinBatches reduces the effect.
+type Precision struct {
+	Absolute float64
+	Relative float64
+}
+
+func (p Precision) validate() error {
+	if !(p.Absolute >= 0) || math.IsInf(p.Absolute, 0) {
+		return settingsErr("Precision.Absolute = %v: must be finite and ≥ 0", p.Absolute)
+	}
+	if !(p.Relative >= 0) || math.IsInf(p.Relative, 0) {
+		return settingsErr("Precision.Relative = %v: must be finite and ≥ 0", p.Relative)
+	}
+	if p.Absolute == 0 && p.Relative == 0 {
+		return settingsErr("Precision has Absolute = 0 and Relative = 0: at least one tolerance must be > 0")
+	}
+	return nil
+}
+
+// batchMeans is the on-line batch-means estimator described at Inference.
+// It is fed the averaged iterates one at a time and allocates nothing after
+// construction.
+type batchMeans struct {
+	d    int
+	full bool
+
+	alpha, scale float64 // α and N of the batch ends
+	minBatches   int
+	level        float64
+
+	j       int // averaged iterates seen
+	nextEnd int // index of the last iterate of the current batch
+	m       int // index of the current batch (0 = transient batch)
+
+	ref   []float64 // reference point of the current batch (the running mean at its start)
+	sum   []float64 // Σ (x_j − ref) over the current batch
+	count int       // iterates in the current batch
+
+	w   float64   // total length of complete batches 1…M
+	mu  []float64 // length-weighted mean of their batch means
+	cov []float64 // Σ n_m (x̄⁽ᵐ⁾ − μ)(x̄⁽ᵐ⁾ − μ)ᵀ: d×d row-major upper triangle, or d diagonal
+	dm  []float64 // scratch: batch mean − μ
+
+	closed bool    // a batch closed on the last add
+	q      float64 // t quantile for the current M (valid when available)
+}
+
+func newBatchMeans(d int, in Inference) *batchMeans {
+	b := &batchMeans{
+		d: d, full: in.Covariance == CovarianceFull,
+		alpha: in.BatchExponent, scale: in.BatchScale,
+		minBatches: in.MinBatches, level: in.Level,
+	}
+	nc := d
+	if b.full {
+		nc = d * d
+	}
+	buf := make([]float64, 4*d+nc)
+	b.ref, b.sum, b.mu, b.dm, b.cov = buf[:d:d], buf[d:2*d:2*d], buf[2*d:3*d:3*d], buf[3*d:4*d:4*d], buf[4*d:]
+	b.nextEnd = b.end(0, 0)
+	return b
+}
+
+// end returns e_m, at least prev+1.
+func (b *batchMeans) end(m, prev int) int {
+	e := math.Ceil(math.Pow(float64(m+1)*b.scale, 1/(1-b.alpha)))
+	if !(e < float64(math.MaxInt/2)) {
+		return math.MaxInt / 2
+	}
+	return max(int(e), prev+1)
+}
+
+// batches returns the number of complete batches after batch 0.
+func (b *batchMeans) batches() int {
+	if b.m == 0 {
+		return 0
+	}
+	return b.m - 1
+}
+
+// available reports whether there are enough batches for error bars.
+func (b *batchMeans) available() bool { return b.batches() >= b.minBatches }
+
+// add feeds the next averaged iterate x; avg is the running mean including
+// x. (The core does the same work fused into its averaging loop.)
+func (b *batchMeans) add(x, avg []float64) {
+	sum, ref := b.sum[:len(x)], b.ref[:len(x)]
+	for i, v := range x {
+		sum[i] += v - ref[i]
+	}
+	b.tick(avg)
+}
+
+// tick counts an iterate already added to sum and closes the batch when it
+// ends. The O(d²) work happens only when a batch closes.
+// The fast path is small enough to be inlined into the core's step.
+func (b *batchMeans) tick(avg []float64) {
+	b.closed = false
+	b.j++
+	b.count++
+	if b.j >= b.nextEnd {
+		b.rollOver(avg)
+	}
+}
+
+// rollOver closes the current batch (folding it in unless it is batch 0)
+// and starts the next one.
+func (b *batchMeans) rollOver(avg []float64) {
+	if b.m > 0 {
+		b.closeBatch()
+	}
+	// Start the next batch.
+	b.m++
+	b.nextEnd = b.end(b.m, b.nextEnd)
+	copy(b.ref, avg)
+	clear(b.sum)
+	b.count = 0
+	b.closed = true
+	if b.available() {
+		b.q = tQuantile(b.batches()-1, b.level)
+	}
+}
+
+// closeBatch folds the current batch into μ and the scatter matrix (the
+// weighted Welford update of West 1979).
+func (b *batchMeans) closeBatch() {
+	n := float64(b.count)
+	wNew := b.w + n
+	f := n * b.w / wNew
+	dm := b.dm
+	for i := range dm {
+		dm[i] = b.ref[i] + b.sum[i]/n - b.mu[i]
+		b.mu[i] += dm[i] * n / wNew
+	}
+	b.w = wNew
+	d := b.d
+	if b.full {
+		for i := range d {
+			s := f * dm[i]
+			row := b.cov[i*d : (i+1)*d]
+			for k := i; k < d; k++ {
+				row[k] += s * dm[k]
+			}
+		}
+	} else {
+		for i, v := range dm {
+			b.cov[i] += f * v * v
+		}
+	}
+}
+
+// variance returns the estimated variance of coordinate i of the average
+// of nAvg iterates: Σ̂_ii / n.
+func (b *batchMeans) variance(i, nAvg int) float64 {
+	c := b.cov[i]
+	if b.full {
+		c = b.cov[i*b.d+i]
+	}
+	return c / float64(b.batches()-1) / float64(nAvg)
+}
+
+// halfWidths writes the current half-widths into dst; the caller checks
+// available().
+func (b *batchMeans) halfWidths(dst []float64, nAvg int) {
+	for i := range dst {
+		dst[i] = b.q * math.Sqrt(b.variance(i, nAvg))
+	}
+}
+
+// precise reports whether every half-width meets p (see Precision).
+func (b *batchMeans) precise(p *Precision, avg []float64, nAvg int) bool {
+	for i, a := range avg {
+		h := b.q * math.Sqrt(b.variance(i, nAvg))
+		if !(h <= p.Absolute || h <= p.Relative*math.Abs(a)) {
+			return false
+		}
+	}
+	return true
+}
+
+// tQuantile returns the (1+level)/2 quantile of Student's t with df degrees
+// of freedom (gonum distuv.StudentsT).
+func tQuantile(df int, level float64) float64 {
+	return distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(df)}.Quantile((1 + level) / 2)
+}
+
+// batchMeansAssumes is the plain statement attached to batch-means error
+// bars.
+const batchMeansAssumes = "Batch means (Chen, Lee, Tong & Zhang 2020): the interval treats the " +
+	"Polyak–Ruppert average as normal about the root, with a covariance estimated from the spread " +
+	"of the means of growing batches of this run's own iterates and Student's t with (batches − 1) " +
+	"degrees of freedom. It assumes the run has settled near one root, the gain decays more slowly " +
+	"than 1/k, the noise has finite variance and is independent from step to step given the past, " +
+	"the field is smooth near the root, and the batches are long enough to be nearly independent. " +
+	"It covers the random error only. Batches too short for the iterates to forget, an active " +
+	"projection or a constant gain make it too narrow; a transient from a distant start that is " +
+	"still in the average (use BurnIn) biases the estimate and distorts the interval."
+
+// replicationAssumes is the plain statement attached to replication error
+// bars.
+const replicationAssumes = "Independent replications: the interval treats the estimates of the " +
+	"runs (independent seeds) as independent draws from one distribution and their mean as normal, " +
+	"with Student's t with (runs − 1) degrees of freedom, exact for normal estimates. It measures " +
+	"the spread between runs only: a bias every run shares (a transient that has not died out, too " +
+	"few steps, a wrong root) is not in it."
+
+// ErrorBars are the standard errors, covariance and confidence intervals of
+// an estimate, with the statement of what they assume. When Available is
+// false the slices are nil (never NaN) and Why says what is missing.
+//
+// The interval for coordinate i is Center[i] ± HalfWidth[i], with
+// HalfWidth[i] = Quantile·StdErr[i] and Quantile the (1+Level)/2 quantile
+// of Student's t with DF degrees of freedom.
+type ErrorBars struct {
+	// Available reports whether the error bars below exist.
+	Available bool
+	// Why says, when Available is false, what is missing.
+	Why string
+	// Center is the estimate the bars are about (the Polyak–Ruppert
+	// average, or the mean of the replications).
+	Center []float64
+	// StdErr[i] is the estimated standard deviation of Center[i].
+	StdErr []float64
+	// Covariance is the estimated covariance matrix of Center, or nil when
+	// only the diagonal is kept (CovarianceDiagonal).
+	Covariance *mat.SymDense
+	// Level is the confidence level of HalfWidth.
+	Level float64
+	// DF is the number of degrees of freedom of the t quantile.
+	DF int
+	// Quantile is the (1+Level)/2 quantile of Student's t with DF degrees
+	// of freedom.
+	Quantile float64
+	// HalfWidth[i] is the half-width of the interval for coordinate i.
+	HalfWidth []float64
+	// Count is the number of batches or replications behind the bars.
+	Count int
+	// Assumes is a plain statement of what the bars assume.
+	Assumes string
+}
+
+// Err returns nil when the error bars are available and an error wrapping
+// ErrNotAvailable that says why otherwise.
+func (e *ErrorBars) Err() error {
+	if e.Available {
+		return nil
+	}
+	return fmt.Errorf("%w: %s", ErrNotAvailable, e.Why)
+}
+
+// Interval returns the interval for coordinate i at level Level. It
+// returns an error wrapping ErrNotAvailable when the bars are not
+// available, and panics if i is out of range.
+func (e *ErrorBars) Interval(i int) (lo, hi float64, err error) {
+	if err := e.Err(); err != nil {
+		return 0, 0, err
+	}
+	return e.Center[i] - e.HalfWidth[i], e.Center[i] + e.HalfWidth[i], nil
+}
+
+// HalfWidthsAt writes into dst the half-widths at another confidence level
+// and returns dst (allocated when nil). It returns an error when the level
+// is not in (0, 1) or the bars are not available. It panics if dst is not
+// nil and has the wrong length.
+func (e *ErrorBars) HalfWidthsAt(dst []float64, level float64) ([]float64, error) {
+	if !(level > 0 && level < 1) {
+		return dst, fmt.Errorf("sa: confidence level %v: must lie strictly between 0 and 1", level)
+	}
+	if err := e.Err(); err != nil {
+		return dst, err
+	}
+	if dst == nil {
+		dst = make([]float64, len(e.StdErr))
+	}
+	if len(dst) != len(e.StdErr) {
+		panic("sa: length mismatch")
+	}
+	q := tQuantile(e.DF, level)
+	for i, s := range e.StdErr {
+		dst[i] = q * s
+	}
+	return dst, nil
+}
+
+// errorBars builds the error bars of the average avg of nAvg iterates.
+func (b *batchMeans) errorBars(avg []float64, nAvg int) ErrorBars {
+	e := ErrorBars{Level: b.level, Count: b.batches(), Assumes: batchMeansAssumes}
+	if !b.available() {
+		e.Why = fmt.Sprintf("%d complete batches after the first, %d needed (batch %d ends at averaged iterate %d, now %d)",
+			b.batches(), b.minBatches, b.m, b.nextEnd, b.j)
+		return e
+	}
+	d := b.d
+	e.Available = true
+	e.Center = append([]float64(nil), avg...)
+	e.DF = b.batches() - 1
+	e.Quantile = b.q
+	e.StdErr = make([]float64, d)
+	e.HalfWidth = make([]float64, d)
+	for i := range d {
+		e.StdErr[i] = math.Sqrt(b.variance(i, nAvg))
+		e.HalfWidth[i] = e.Quantile * e.StdErr[i]
+	}
+	if b.full {
+		s := 1 / float64(e.DF) / float64(nAvg)
+		data := make([]float64, d*d)
+		for i := range d {
+			for k := i; k < d; k++ {
+				data[i*d+k] = b.cov[i*d+k] * s
+				data[k*d+i] = data[i*d+k]
+			}
+		}
+		e.Covariance = mat.NewSymDense(d, data)
+	}
+	return e
+}

@@ -1,0 +1,233 @@
+// Package saplot draws convergence plots of stochastic-approximation runs
+// from the traces of package sa (Settings.Trace) and writes them as image
+// files with gonum.org/v1/plot.
+//
+// It is a separate package so that a service importing sa does not pull a
+// plotting library into its build.
+//
+//   - [Distance] plots ‖x_k − x*‖ and ‖x̄_k − x*‖ against the measurements
+//     used, on log–log axes, with the Euclidean norm of the confidence
+//     half-widths of the average beside them, when the truth x* is known.
+//   - [Estimate] plots one coordinate of the iterate and of the average
+//     against the measurements used, with the confidence band of the
+//     average and, when known, the true value.
+//
+// The file format follows the extension of the path: .png, .svg, .pdf,
+// .eps, .jpg, .tif.
+package saplot
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"os"
+	"path/filepath"
+
+	"gonum.org/v1/plot"
+	"gonum.org/v1/plot/plotter"
+	"gonum.org/v1/plot/vg"
+
+	"github.com/stochroot/stochroot/sa"
+)
+
+// Options are the optional knobs of a plot. The zero value is a 16 cm ×
+// 10 cm plot with a generated title.
+type Options struct {
+	// Title replaces the generated title when not empty.
+	Title string
+	// Width and Height of the image in centimetres; 0 means 16 and 10.
+	Width, Height float64
+}
+
+// ErrEmptyTrace reports a nil trace or one without records.
+var ErrEmptyTrace = errors.New("saplot: the trace has no records")
+
+func (o Options) size() (vg.Length, vg.Length, error) {
+	w, h := o.Width, o.Height
+	if w == 0 {
+		w = 16
+	}
+	if h == 0 {
+		h = 10
+	}
+	if !(w > 0 && h > 0) || math.IsInf(w, 0) || math.IsInf(h, 0) {
+		return 0, 0, fmt.Errorf("saplot: size %v × %v cm: must be finite and > 0", o.Width, o.Height)
+	}
+	return vg.Length(w) * vg.Centimeter, vg.Length(h) * vg.Centimeter, nil
+}
+
+// Distance writes to path a log–log plot of the distances ‖x_k − x*‖ and
+// ‖x̄_k − x*‖ to the known truth x* against the measurements used, with the
+// Euclidean norm of the confidence half-widths of the average where they
+// are available (a radius the distance of the average should mostly stay
+// under). It returns an error if the trace is empty, truth has the wrong
+// length, or the file cannot be written.
+func Distance(path string, tr *sa.Trace, truth []float64, o Options) error {
+	if tr == nil || tr.Len() == 0 {
+		return ErrEmptyTrace
+	}
+	if len(truth) != tr.Dim() {
+		return fmt.Errorf("saplot: truth has length %d, the trace dimension %d", len(truth), tr.Dim())
+	}
+	w, h, err := o.size()
+	if err != nil {
+		return err
+	}
+	var dx, da, hw plotter.XYs
+	for p := range tr.All() {
+		m := float64(max(p.Measurements, 1))
+		if v := dist(p.X, truth); v > 0 {
+			dx = append(dx, plotter.XY{X: m, Y: v})
+		}
+		if p.Average != nil {
+			if v := dist(p.Average, truth); v > 0 {
+				da = append(da, plotter.XY{X: m, Y: v})
+			}
+		}
+		if p.HalfWidth != nil {
+			if v := norm(p.HalfWidth); v > 0 {
+				hw = append(hw, plotter.XY{X: m, Y: v})
+			}
+		}
+	}
+	pl := plot.New()
+	pl.Title.Text = o.Title
+	if pl.Title.Text == "" {
+		pl.Title.Text = "Distance to the truth"
+	}
+	pl.X.Label.Text = "measurements used"
+	pl.Y.Label.Text = "Euclidean distance"
+	pl.X.Scale, pl.Y.Scale = plot.LogScale{}, plot.LogScale{}
+	pl.X.Tick.Marker, pl.Y.Tick.Marker = plot.LogTicks{Prec: -1}, plot.LogTicks{Prec: -1}
+	pl.Legend.Top = true
+	if err := addLine(pl, dx, "iterate", 0, false); err != nil {
+		return err
+	}
+	if err := addLine(pl, da, "average", 1, false); err != nil {
+		return err
+	}
+	if err := addLine(pl, hw, fmt.Sprintf("‖%g%% half-widths of the average‖", 100*tr.Level()), 2, true); err != nil {
+		return err
+	}
+	return save(pl, w, h, path)
+}
+
+// Estimate writes to path a plot of coordinate i of the iterate and of the
+// average against the measurements used (log scale), with the confidence
+// band of the average where available. If truth is not nil, truth[i] is
+// drawn as a horizontal line. It returns an error if the trace is empty, i
+// is out of range, truth has the wrong length, or the file cannot be
+// written.
+func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) error {
+	if tr == nil || tr.Len() == 0 {
+		return ErrEmptyTrace
+	}
+	if i < 0 || i >= tr.Dim() {
+		return fmt.Errorf("saplot: coordinate %d out of range [0, %d)", i, tr.Dim())
+	}
+	if truth != nil && len(truth) != tr.Dim() {
+		return fmt.Errorf("saplot: truth has length %d, the trace dimension %d", len(truth), tr.Dim())
+	}
+	w, h, err := o.size()
+	if err != nil {
+		return err
+	}
+	var xs, as, lo, hi plotter.XYs
+	first, last := math.Inf(1), 0.0
+	ymin, ymax := math.Inf(1), math.Inf(-1) // of the average, band and truth
+	widen := func(v float64) { ymin, ymax = math.Min(ymin, v), math.Max(ymax, v) }
+	for p := range tr.All() {
+		m := float64(max(p.Measurements, 1))
+		first, last = math.Min(first, m), math.Max(last, m)
+		xs = append(xs, plotter.XY{X: m, Y: p.X[i]})
+		if p.Average != nil {
+			as = append(as, plotter.XY{X: m, Y: p.Average[i]})
+			widen(p.Average[i])
+		}
+		if p.HalfWidth != nil {
+			lo = append(lo, plotter.XY{X: m, Y: p.Average[i] - p.HalfWidth[i]})
+			hi = append(hi, plotter.XY{X: m, Y: p.Average[i] + p.HalfWidth[i]})
+			widen(p.Average[i] - p.HalfWidth[i])
+			widen(p.Average[i] + p.HalfWidth[i])
+		}
+	}
+	if truth != nil {
+		widen(truth[i])
+	}
+	pl := plot.New()
+	pl.Title.Text = o.Title
+	if pl.Title.Text == "" {
+		pl.Title.Text = fmt.Sprintf("Estimate of coordinate %d", i+1)
+	}
+	pl.X.Label.Text = "measurements used"
+	pl.Y.Label.Text = fmt.Sprintf("x_%d", i+1)
+	pl.X.Scale = plot.LogScale{}
+	pl.X.Tick.Marker = plot.LogTicks{Prec: -1}
+	pl.Y.Tick.Marker = preciseTicks{}
+	pl.Legend.Top = true
+	if err := addLine(pl, xs, "iterate", 0, false); err != nil {
+		return err
+	}
+	if len(lo) > 1 {
+		// The band: upper edge forward, lower edge back.
+		ring := make(plotter.XYs, 0, 2*len(lo))
+		ring = append(ring, hi...)
+		for k := len(lo) - 1; k >= 0; k-- {
+			ring = append(ring, lo[k])
+		}
+		band, err := plotter.NewPolygon(ring)
+		if err != nil {
+			return fmt.Errorf("saplot: %w", err)
+		}
+		band.Color = fade(2)
+		band.LineStyle.Width = 0
+		pl.Add(band)
+		pl.Legend.Add(fmt.Sprintf("%g%% confidence band", 100*tr.Level()), band)
+	}
+	if err := addLine(pl, as, "average", 1, false); err != nil {
+		return err
+	}
+	if truth != nil {
+		tl := plotter.XYs{{X: first, Y: truth[i]}, {X: last, Y: truth[i]}}
+		if err := addLine(pl, tl, "truth", 3, true); err != nil {
+			return err
+		}
+	}
+	if len(as) > 0 {
+		// Frame the average and its band (set after Add, which widens the
+		// axes to every line); the noisier iterate is clipped.
+		pad := 0.1 * (ymax - ymin)
+		if pad == 0 {
+			pad = 0.1*math.Abs(ymax) + 1e-12
+		}
+		pl.Y.Min, pl.Y.Max = ymin-pad, ymax+4*pad // room for the legend
+	}
+	return save(pl, w, h, path)
+}
+
+func save(pl *plot.Plot, w, h vg.Length, path string) error {
+	if err := pl.Save(w, h, path); err != nil {
+		return fmt.Errorf("saplot: writing %s: %w", path, err)
+	}
+	// plot.Save reports some failures only through a file left empty.
+	if fi, err := os.Stat(path); err != nil || fi.Size() == 0 {
+		return fmt.Errorf("saplot: writing %s: file missing or empty", filepath.Clean(path))
+	}
+	return nil
+}
+
+func dist(x, y []float64) float64 {
+	s := 0.0
+	for i := range x {
+		s += (x[i] - y[i]) * (x[i] - y[i])
+	}
+	return math.Sqrt(s)
+}
+
+func norm(x []float64) float64 {
+	s := 0.0
+	for _, v := range x {
+		s += v * v
+	}
+	return math.Sqrt(s)
+}

@@ -1,0 +1,84 @@
+package saplot
+
+import (
+	"image/color"
+	"math"
+	"strconv"
+
+	"gonum.org/v1/plot"
+	"gonum.org/v1/plot/plotter"
+	"gonum.org/v1/plot/vg"
+)
+
+// palette holds the line colours (dark, readable on white and in grey).
+var palette = []color.RGBA{
+	{R: 0xbb, G: 0xbb, B: 0xbb, A: 0xff}, // iterate: light grey
+	{R: 0x1f, G: 0x4e, B: 0x9c, A: 0xff}, // average: blue
+	{R: 0xc2, G: 0x41, B: 0x0c, A: 0xff}, // half-widths / band: orange
+	{R: 0x1b, G: 0x7a, B: 0x3a, A: 0xff}, // truth: green
+}
+
+// fade returns palette colour k at low opacity, for bands.
+func fade(k int) color.Color {
+	c := palette[k]
+	c.A = 0x50
+	// Premultiplied alpha.
+	c.R = uint8(uint16(c.R) * 0x50 / 0xff)
+	c.G = uint8(uint16(c.G) * 0x50 / 0xff)
+	c.B = uint8(uint16(c.B) * 0x50 / 0xff)
+	return c
+}
+
+// addLine adds a line in palette colour k (dashed if asked) with a legend
+// entry; an empty series is skipped.
+func addLine(pl *plot.Plot, xys plotter.XYs, name string, k int, dashed bool) error {
+	if len(xys) == 0 {
+		return nil
+	}
+	l, err := plotter.NewLine(xys)
+	if err != nil {
+		return err
+	}
+	l.Color = palette[k]
+	l.Width = vg.Points(1.2)
+	if k == 0 {
+		l.Width = vg.Points(0.6) // the iterate: background
+	}
+	if dashed {
+		l.Dashes = []vg.Length{vg.Points(5), vg.Points(3)}
+	}
+	pl.Add(l)
+	pl.Legend.Add(name, l)
+	return nil
+}
+
+// preciseTicks is plot.DefaultTicks with labels written to as many
+// decimals as the spacing of the major ticks needs, so that close ticks
+// never share a label.
+type preciseTicks struct{}
+
+// Ticks returns the default ticks, relabelled.
+func (preciseTicks) Ticks(lo, hi float64) []plot.Tick {
+	ticks := plot.DefaultTicks{}.Ticks(lo, hi)
+	step := math.Inf(1)
+	prev := math.NaN()
+	for _, t := range ticks {
+		if t.Label == "" {
+			continue
+		}
+		if !math.IsNaN(prev) {
+			step = math.Min(step, t.Value-prev)
+		}
+		prev = t.Value
+	}
+	if math.IsInf(step, 1) || step <= 0 {
+		return ticks
+	}
+	dec := max(0, int(-math.Floor(math.Log10(step)+1e-9)))
+	for k, t := range ticks {
+		if t.Label != "" {
+			ticks[k].Label = strconv.FormatFloat(t.Value, 'f', dec, 64)
+		}
+	}
+	return ticks
+}
