@@ -4,6 +4,8 @@ import (
 	"fmt"
 	"math"
 
+	"gonum.org/v1/gonum/floats"
+
 	"github.com/stochroot/stochroot/schedule"
 )
 
@@ -62,20 +64,22 @@ func (c *core) step(y []float64) error {
 	}
 	x, next := c.x, c.next[:len(c.x)]
 	y = y[:len(x)]
-	// nan stays 0 while every next[i] is finite: v*0 is NaN for ±Inf and NaN.
-	nan := 0.0
-	for i, yi := range y {
-		v := x[i] - a*yi
-		next[i] = v
-		nan += v * 0
-	}
-	if nan != 0 { // NaN compares unequal to 0
+	// next = x − a·y with gonum's vector kernel (x + (−a)·y is the same
+	// value: negation is exact). The sum of next is finite when every
+	// entry is; only when it is not (a non-finite entry, or an overflow of
+	// the sum itself) are the entries examined one by one.
+	floats.AddScaledTo(next, x, -a, y)
+	if s := floats.Sum(next); s-s != 0 { // NaN for ±Inf and NaN
 		for i, yi := range y {
 			if math.IsNaN(yi) || math.IsInf(yi, 0) {
 				return &StepError{Step: c.steps, Err: fmt.Errorf("%w: Y[%d] = %v", ErrNotFinite, i, yi)}
 			}
 		}
-		return &StepError{Step: c.steps, Err: fmt.Errorf("%w: x − a·Y overflows (a = %v)", ErrDiverged, a)}
+		for _, v := range next {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return &StepError{Step: c.steps, Err: fmt.Errorf("%w: x − a·Y overflows (a = %v)", ErrDiverged, a)}
+			}
+		}
 	}
 	active := false
 	if c.proj != nil {

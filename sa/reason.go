@@ -16,6 +16,9 @@ const (
 	Cancelled
 	// Failed: a step failed; the returned error says why.
 	Failed
+	// EpochLimit: another step would exceed Settings.MaxEpochs passes over
+	// the data (finite-sum driver).
+	EpochLimit
 )
 
 var reasonNames = [...]string{
@@ -24,6 +27,7 @@ var reasonNames = [...]string{
 	MeasurementLimit: "measurement budget reached",
 	Cancelled:        "cancelled",
 	Failed:           "failed",
+	EpochLimit:       "epoch budget reached",
 }
 
 // String returns a short description of the reason.
