@@ -41,7 +41,7 @@ func genData(n, d int, seed uint64) (a, yReal, yLabel []float64) {
 // every ready-made model (each loss, with and without intercept, penalty
 // and standardisation) against central finite differences of the model's
 // objective computed by gonum's diff/fd. Central differences with step h
-// have truncation error O(h²·f''') and rounding error O(u·|f|/h) (a
+// have truncation error O(h²·f”') and rounding error O(u·|f|/h) (a
 // standard result, e.g. Nocedal & Wright 2006, "Numerical Optimization",
 // §8.1); with gonum's default h = 1e-6 both are below 1e-7 relative to the
 // gradient's scale here. The pinball loss is piecewise linear: the check
@@ -312,15 +312,24 @@ func TestBadInput(t *testing.T) {
 		err  error
 		want error
 	}{
-		{"empty data", func() error { _, err := oracle.NewLeastSquares(oracle.Dense{Cols: 2}, nil, oracle.RegressionSettings{}); return err }(), oracle.ErrData},
+		{"empty data", func() error {
+			_, err := oracle.NewLeastSquares(oracle.Dense{Cols: 2}, nil, oracle.RegressionSettings{})
+			return err
+		}(), oracle.ErrData},
 		{"no rows", func() error { _, err := oracle.DenseFromRows(nil); return err }(), oracle.ErrData},
-		{"zero columns", func() error { _, err := oracle.NewLeastSquares(oracle.Dense{Data: []float64{1}}, []float64{1}, oracle.RegressionSettings{}); return err }(), oracle.ErrData},
+		{"zero columns", func() error {
+			_, err := oracle.NewLeastSquares(oracle.Dense{Data: []float64{1}}, []float64{1}, oracle.RegressionSettings{})
+			return err
+		}(), oracle.ErrData},
 		{"ragged rows", func() error { _, err := oracle.DenseFromRows([][]float64{{1, 2}, {3}}); return err }(), oracle.ErrData},
 		{"ragged flat data", func() error {
 			_, err := oracle.NewLeastSquares(oracle.Dense{Data: []float64{1, 2, 3}, Cols: 2}, []float64{1}, oracle.RegressionSettings{})
 			return err
 		}(), oracle.ErrData},
-		{"target count", func() error { _, err := oracle.NewLeastSquares(good, []float64{1, 2}, oracle.RegressionSettings{}); return err }(), oracle.ErrData},
+		{"target count", func() error {
+			_, err := oracle.NewLeastSquares(good, []float64{1, 2}, oracle.RegressionSettings{})
+			return err
+		}(), oracle.ErrData},
 		{"NaN in data", func() error {
 			_, err := oracle.NewLeastSquares(oracle.Dense{Data: []float64{1, nan, 3, 4}, Cols: 2}, []float64{1, 2}, oracle.RegressionSettings{})
 			return err
@@ -329,8 +338,14 @@ func TestBadInput(t *testing.T) {
 			_, err := oracle.NewLeastSquares(good, []float64{1, math.Inf(1), 2}, oracle.RegressionSettings{})
 			return err
 		}(), oracle.ErrData},
-		{"label 2 for logistic", func() error { _, err := oracle.NewLogistic(good, []float64{1, 2, 0}, oracle.RegressionSettings{}); return err }(), oracle.ErrData},
-		{"label 0.5 for logistic", func() error { _, err := oracle.NewLogistic(good, []float64{1, 0.5, 0}, oracle.RegressionSettings{}); return err }(), oracle.ErrData},
+		{"label 2 for logistic", func() error {
+			_, err := oracle.NewLogistic(good, []float64{1, 2, 0}, oracle.RegressionSettings{})
+			return err
+		}(), oracle.ErrData},
+		{"label 0.5 for logistic", func() error {
+			_, err := oracle.NewLogistic(good, []float64{1, 0.5, 0}, oracle.RegressionSettings{})
+			return err
+		}(), oracle.ErrData},
 		{"constant column standardised", func() error {
 			_, err := oracle.NewLeastSquares(oracle.Dense{Data: []float64{1, 5, 2, 5, 3, 5}, Cols: 2}, y, oracle.RegressionSettings{Standardize: true})
 			return err
@@ -340,10 +355,16 @@ func TestBadInput(t *testing.T) {
 			return err
 		}(), oracle.ErrData},
 		{"negative L2", func() error { _, err := oracle.NewLeastSquares(good, y, oracle.RegressionSettings{L2: -1}); return err }(), oracle.ErrInvalid},
-		{"NaN L2", func() error { _, err := oracle.NewLeastSquares(good, y, oracle.RegressionSettings{L2: nan}); return err }(), oracle.ErrInvalid},
+		{"NaN L2", func() error {
+			_, err := oracle.NewLeastSquares(good, y, oracle.RegressionSettings{L2: nan})
+			return err
+		}(), oracle.ErrInvalid},
 		{"tau 1", func() error { _, err := oracle.NewQuantile(good, y, 1, oracle.RegressionSettings{}); return err }(), oracle.ErrInvalid},
 		{"tau NaN", func() error { _, err := oracle.NewQuantile(good, y, nan, oracle.RegressionSettings{}); return err }(), oracle.ErrInvalid},
-		{"batch size 0", func() error { _, err := oracle.NewMiniBatch(ls, sampling.NewUniform(3), 0, oracle.BatchSettings{}); return err }(), oracle.ErrInvalid},
+		{"batch size 0", func() error {
+			_, err := oracle.NewMiniBatch(ls, sampling.NewUniform(3), 0, oracle.BatchSettings{})
+			return err
+		}(), oracle.ErrInvalid},
 		{"batch above n without replacement", func() error {
 			_, err := oracle.NewMiniBatch(ls, sampling.NewShuffled(3), 4, oracle.BatchSettings{})
 			return err
@@ -352,7 +373,10 @@ func TestBadInput(t *testing.T) {
 			_, err := oracle.NewMiniBatch(ls, sampling.NewSequential(3), 4, oracle.BatchSettings{})
 			return err
 		}(), oracle.ErrInvalid},
-		{"sampler of other length", func() error { _, err := oracle.NewMiniBatch(ls, sampling.NewUniform(4), 1, oracle.BatchSettings{}); return err }(), oracle.ErrInvalid},
+		{"sampler of other length", func() error {
+			_, err := oracle.NewMiniBatch(ls, sampling.NewUniform(4), 1, oracle.BatchSettings{})
+			return err
+		}(), oracle.ErrInvalid},
 		{"nil sampler", func() error { _, err := oracle.NewMiniBatch(ls, nil, 1, oracle.BatchSettings{}); return err }(), oracle.ErrInvalid},
 		{"nil finite sum", func() error { _, err := oracle.NewFullBatch(nil, oracle.BatchSettings{}); return err }(), oracle.ErrInvalid},
 		{"negative workers", func() error { _, err := oracle.NewFullBatch(ls, oracle.BatchSettings{Workers: -1}); return err }(), oracle.ErrInvalid},
