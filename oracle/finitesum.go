@@ -116,10 +116,12 @@ type MiniBatch struct {
 // collected and its workers stopped.
 type batchShared struct {
 	f       FiniteSum
+	rf      *Regression // f when it is a *Regression (fast contiguous ranges), or nil
 	d       int
 	chunks  int
 	size    int       // batch size
 	partial []float64 // chunks×d partial sums
+	scratch []float64 // chunks×rangeBlock scratch for rf
 	next    atomic.Int64
 	wg      sync.WaitGroup
 
@@ -211,6 +213,12 @@ func newBatch(f FiniteSum, size int, bs BatchSettings) (*MiniBatch, error) {
 	n, d := f.Len(), f.Dim()
 	chunks := chunkCount(size, d)
 	sh := &batchShared{f: f, d: d, chunks: chunks, size: size}
+	// Only the concrete model type takes the block path: a wrapper that
+	// embeds a *Regression and overrides AddGradient must not be bypassed.
+	sh.rf, _ = f.(*Regression)
+	if sh.rf != nil {
+		sh.scratch = make([]float64, chunks*rangeBlock)
+	}
 	if chunks > 1 {
 		sh.partial = make([]float64, chunks*d)
 	}
@@ -234,10 +242,15 @@ func (sh *batchShared) chunkRange(c int) (lo, hi int) {
 	return c * sh.size / sh.chunks, (c + 1) * sh.size / sh.chunks
 }
 
-// accumulate adds w·∇f_i(x) for the batch positions [lo, hi) into dst.
-func (sh *batchShared) accumulate(dst []float64, lo, hi int) {
+// accumulate adds w·∇f_i(x) for the batch positions [lo, hi) of chunk c
+// into dst.
+func (sh *batchShared) accumulate(dst []float64, c, lo, hi int) {
 	f, x, w := sh.f, sh.x, sh.w
 	if sh.idx == nil {
+		if sh.rf != nil {
+			sh.rf.addRange(dst, x, lo, hi, w, sh.scratch[c*rangeBlock:(c+1)*rangeBlock])
+			return
+		}
 		for i := lo; i < hi; i++ {
 			f.AddGradient(dst, x, i, w)
 		}
@@ -259,7 +272,7 @@ func (sh *batchShared) work() {
 		p := sh.partial[c*d : (c+1)*d]
 		clear(p)
 		lo, hi := sh.chunkRange(c)
-		sh.accumulate(p, lo, hi)
+		sh.accumulate(p, c, lo, hi)
 	}
 }
 
@@ -282,7 +295,7 @@ func (b *MiniBatch) Measure(dst, x []float64, rng *rand.Rand) error {
 	b.evals += b.size
 	if sh.chunks == 1 {
 		clear(dst)
-		sh.accumulate(dst, 0, b.size)
+		sh.accumulate(dst, 0, 0, b.size)
 		sh.x, sh.idx = nil, nil
 		return nil
 	}

@@ -4,6 +4,8 @@ import (
 	"fmt"
 	"math"
 
+	"gonum.org/v1/gonum/blas"
+	"gonum.org/v1/gonum/blas/gonum"
 	"gonum.org/v1/gonum/floats"
 )
 
@@ -297,6 +299,59 @@ func (r *Regression) AddGradient(dst, x []float64, i int, w float64) {
 	floats.AddScaled(dst[r.off:], g, row)
 	if r.l2 != 0 {
 		floats.AddScaled(dst[r.off:], w*r.l2, x[r.off:])
+	}
+}
+
+// rangeBlock is the largest number of rows AddGradientRange handles per
+// matrix–vector product; rangeBlockBytes bounds the block so that its
+// second read (for the transposed product) comes from cache.
+const (
+	rangeBlock      = 64
+	rangeBlockBytes = 1 << 15
+)
+
+// addRange adds w·Σ_{i=lo}^{hi−1} ∇f_i(x) into dst, the same sum as
+// calling AddGradient for i = lo, …, hi−1, computed block by block with two
+// matrix–vector products (margins z = A_B·β + b₀, then
+// dst += A_Bᵀ·(w·ℓ'(z))) using gonum's BLAS kernels; the result may differ
+// from the one-at-a-time sum in the last bits (summation order). scratch
+// must hold rangeBlock values. The full-batch oracle uses it for a
+// *Regression. It allocates nothing and is safe for concurrent use with
+// different dst and scratch.
+func (r *Regression) addRange(dst, x []float64, lo, hi int, w float64, scratch []float64) {
+	if len(x) != r.p+r.off || len(dst) != len(x) {
+		panic("oracle: Regression length mismatch")
+	}
+	if lo < 0 || hi > r.n || lo > hi {
+		panic("oracle: Regression range out of bounds")
+	}
+	p, off := r.p, r.off
+	beta, g := x[off:], dst[off:]
+	blk := max(1, min(rangeBlock, rangeBlockBytes/(8*p)))
+	buf := scratch[:rangeBlock]
+	var impl gonum.Implementation
+	for b := lo; b < hi; b += blk {
+		rows := min(blk, hi-b)
+		a := r.a[b*p : (b+rows)*p]
+		z := buf[:rows]
+		impl.Dgemv(blas.NoTrans, rows, p, 1, a, p, beta, 1, 0, z, 1)
+		sum := 0.0
+		for k := range z {
+			zk := z[k]
+			if off == 1 {
+				zk += x[0]
+			}
+			v := w * r.dLoss(zk, b+k)
+			z[k] = v
+			sum += v
+		}
+		if off == 1 {
+			dst[0] += sum
+		}
+		impl.Dgemv(blas.Trans, rows, p, 1, a, p, z, 1, 1, g, 1)
+	}
+	if r.l2 != 0 {
+		floats.AddScaled(g, float64(hi-lo)*w*r.l2, beta)
 	}
 }
 

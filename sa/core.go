@@ -37,6 +37,10 @@ type core struct {
 	maxAbs float64 // > 0: |x_i| above it is divergence
 }
 
+// vectorKernelMin is the dimension from which step uses gonum's vector
+// kernels; below it a plain loop has less fixed cost.
+const vectorKernelMin = 64
+
 // newCore copies x0 and prepares a core. The arguments must already be
 // validated.
 func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, maxAbs float64) *core {
@@ -64,12 +68,25 @@ func (c *core) step(y []float64) error {
 	}
 	x, next := c.x, c.next[:len(c.x)]
 	y = y[:len(x)]
-	// next = x − a·y with gonum's vector kernel (x + (−a)·y is the same
-	// value: negation is exact). The sum of next is finite when every
-	// entry is; only when it is not (a non-finite entry, or an overflow of
-	// the sum itself) are the entries examined one by one.
-	floats.AddScaledTo(next, x, -a, y)
-	if s := floats.Sum(next); s-s != 0 { // NaN for ±Inf and NaN
+	// next = x − a·y, and a finiteness check of next: nan stays 0 while
+	// every entry is finite (v*0 is NaN for ±Inf and NaN). Long vectors
+	// use gonum's kernels instead (x + (−a)·y is the same value: negation
+	// is exact; the sum of next is finite when every entry is, and only
+	// when it is not, or the sum itself overflows, are the entries
+	// examined one by one).
+	nan := 0.0
+	if len(x) < vectorKernelMin {
+		for i, yi := range y {
+			v := x[i] - a*yi
+			next[i] = v
+			nan += v * 0
+		}
+	} else {
+		floats.AddScaledTo(next, x, -a, y)
+		s := floats.Sum(next)
+		nan = s - s
+	}
+	if nan != 0 { // NaN compares unequal to 0
 		for i, yi := range y {
 			if math.IsNaN(yi) || math.IsInf(yi, 0) {
 				return &StepError{Step: c.steps, Err: fmt.Errorf("%w: Y[%d] = %v", ErrNotFinite, i, yi)}
