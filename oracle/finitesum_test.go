@@ -416,7 +416,7 @@ func TestMiniBatchCounts(t *testing.T) {
 	a, yr, _ := genData(n, d, 9)
 	ls, _ := oracle.NewLeastSquares(oracle.Dense{Data: a, Cols: d}, yr, oracle.RegressionSettings{})
 	s := sampling.NewShuffled(n)
-	b, err := oracle.NewMiniBatch(ls, s, 25, oracle.BatchSettings{})
+	b, err := oracle.NewMiniBatch(ls, s, 25, oracle.BatchSettings{Workers: 4})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -427,6 +427,10 @@ func TestMiniBatchCounts(t *testing.T) {
 	}
 	if b.Evaluations() != 150 || b.Epochs() != 1.5 || s.Epoch() != 1 || b.MeasurementsPerCall() != 25 {
 		t.Errorf("Evaluations %d, Epochs %v, sampler epoch %d, per call %d; want 150, 1.5, 1, 25", b.Evaluations(), b.Epochs(), s.Epoch(), b.MeasurementsPerCall())
+	}
+	// Small batches stay on the calling goroutine whatever Workers says.
+	if b.Workers() != 1 {
+		t.Errorf("batch of 25 in dimension 3: Workers() = %d, want 1", b.Workers())
 	}
 	b.Reset()
 	if b.Evaluations() != 0 || s.Epoch() != 0 {
