@@ -203,8 +203,12 @@ func TestReferenceQuantileIntercept(t *testing.T) {
 // replacement equals BGD's x_1 up to a_0 times the summation bound; with
 // replacement it does not.
 func TestBatchOfNStepEqualsBGD(t *testing.T) {
-	n := 400
-	m := lsModel(t, n, 3, 6)
+	n, d := 400, 3
+	a, y, _ := genLinear(n, d, 6)
+	m, err := oracle.NewLeastSquares(oracle.Dense{Data: a, Cols: d}, y, oracle.RegressionSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
 	s := sa.Settings{Gain: schedule.Constant(0.1), MaxSteps: 1, Seed: 1}
 	x0 := []float64{0.5, 0.5, 0.5, 0.5}
 	run := func(g *oracle.MiniBatch, err error) []float64 {
@@ -220,24 +224,35 @@ func TestBatchOfNStepEqualsBGD(t *testing.T) {
 	bgd := run(oracle.NewFullBatch(m, oracle.BatchSettings{}))
 	without := run(oracle.NewMiniBatch(m, sampling.NewShuffled(n), n, oracle.BatchSettings{}))
 	with := run(oracle.NewMiniBatch(m, sampling.NewUniform(n), n, oracle.BatchSettings{}))
-	// Summation bound (Higham 2002, §4.2): the two gradients are sums of
-	// the same n terms in different orders, so they differ by at most
-	// 2γ_n·Σ_i|w·∂f_i/∂x_j|; the steps by a_0 times that, plus one
-	// rounding of x_0 − a_0·Y.
+	// Rounding bound (Higham 2002, §3.1 and §4.2, as in oracle's
+	// sumBound): the two gradients sum the same n terms in different
+	// orders, each within γ_n·Σ|terms| of the exact sum, and their
+	// margins come from dot products in different orders, each within
+	// γ_{d+1}·(|b₀| + Σ|a_ij β_j|) of the exact margin; the steps differ by
+	// a_0 times that, plus one rounding of x_0 − a_0·Y each.
 	u := 0x1p-53
-	gamma := float64(n) * u / (1 - float64(n)*u)
-	abs := make([]float64, len(x0))
-	gi := make([]float64, len(x0))
+	gn := float64(n) * u / (1 - float64(n)*u)
+	gd := float64(d+1) * u / (1 - float64(d+1)*u)
+	gb := make([]float64, d+1)
 	for i := range n {
-		clear(gi)
-		m.AddGradient(gi, x0, i, 1/float64(n))
-		for j := range gi {
-			abs[j] += math.Abs(gi[j])
+		row := a[i*d : (i+1)*d]
+		r := x0[0] - y[i]
+		mag := math.Abs(x0[0])
+		for j, v := range row {
+			r += v * x0[j+1]
+			mag += math.Abs(v * x0[j+1])
+		}
+		for j := range d + 1 {
+			zj := 1.0
+			if j > 0 {
+				zj = math.Abs(row[j-1])
+			}
+			gb[j] += (2*gn*math.Abs(r)*zj + 2*gd*mag*zj) / float64(n)
 		}
 	}
 	farther := false
 	for j := range bgd {
-		bound := 0.1*2*gamma*abs[j] + 2*u*math.Abs(bgd[j])
+		bound := 0.1*gb[j] + 2*u*math.Abs(bgd[j])
 		if e := math.Abs(without[j] - bgd[j]); e > bound {
 			t.Errorf("without replacement x1[%d] = %.17g, BGD %.17g", j, without[j], bgd[j])
 		}
