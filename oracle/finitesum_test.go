@@ -5,7 +5,9 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"runtime"
 	"testing"
+	"time"
 
 	"gonum.org/v1/gonum/diff/fd"
 	"gonum.org/v1/gonum/floats"
@@ -459,4 +461,45 @@ func sumBound(a, y []float64, d int, x []float64) []float64 {
 		}
 	}
 	return out
+}
+
+// TestCloseStopsWorkers checks that the worker goroutines start with the
+// first parallel batch and stop on Close, and that a MiniBatch abandoned
+// without Close has its workers stopped once it is collected.
+func TestCloseStopsWorkers(t *testing.T) {
+	n, d := 4000, 50
+	a, yr, _ := genData(n, d, 10)
+	ls, _ := oracle.NewLeastSquares(oracle.Dense{Data: a, Cols: d}, yr, oracle.RegressionSettings{})
+	x, y := make([]float64, d+1), make([]float64, d+1)
+	waitFor := func(want int) int {
+		got := runtime.NumGoroutine()
+		for range 200 {
+			if got = runtime.NumGoroutine(); got <= want {
+				return got
+			}
+			runtime.GC()
+			time.Sleep(5 * time.Millisecond)
+		}
+		return got
+	}
+	before := runtime.NumGoroutine()
+	b, _ := oracle.NewFullBatch(ls, oracle.BatchSettings{Workers: 4})
+	if got := runtime.NumGoroutine(); got != before {
+		t.Errorf("goroutines before the first batch: %d, want %d", got, before)
+	}
+	b.Measure(y, x, nil)
+	if got := runtime.NumGoroutine(); got != before+3 {
+		t.Errorf("goroutines after a parallel batch: %d, want %d", got, before+3)
+	}
+	b.Close()
+	if got := waitFor(before); got != before {
+		t.Errorf("goroutines after Close: %d, want %d", got, before)
+	}
+	func() {
+		b2, _ := oracle.NewFullBatch(ls, oracle.BatchSettings{Workers: 3})
+		b2.Measure(y, x, nil)
+	}()
+	if got := waitFor(before); got != before {
+		t.Errorf("goroutines after an abandoned MiniBatch was collected: %d, want %d", got, before)
+	}
 }
