@@ -120,7 +120,8 @@ type batchShared struct {
 	d       int
 	chunks  int
 	size    int       // batch size
-	partial []float64 // chunks×d partial sums
+	partial []float64 // chunks partial sums of d values, stride apart
+	stride  int       // d rounded up to whole cache lines, plus one line
 	scratch []float64 // chunks×rangeBlock scratch for rf
 	next    atomic.Int64
 	wg      sync.WaitGroup
@@ -220,7 +221,10 @@ func newBatch(f FiniteSum, size int, bs BatchSettings) (*MiniBatch, error) {
 		sh.scratch = make([]float64, chunks*rangeBlock)
 	}
 	if chunks > 1 {
-		sh.partial = make([]float64, chunks*d)
+		// Partial sums sit whole cache lines apart so that two workers
+		// never write to the same line (false sharing).
+		sh.stride = (d+7)/8*8 + 8
+		sh.partial = make([]float64, chunks*sh.stride)
 	}
 	return &MiniBatch{f: f, size: size, n: n, d: d, workers: min(w, chunks), sh: sh}, nil
 }
@@ -269,7 +273,7 @@ func (sh *batchShared) work() {
 		if c >= sh.chunks {
 			return
 		}
-		p := sh.partial[c*d : (c+1)*d]
+		p := sh.partial[c*sh.stride : c*sh.stride+d]
 		clear(p)
 		lo, hi := sh.chunkRange(c)
 		sh.accumulate(p, c, lo, hi)
@@ -314,9 +318,10 @@ func (b *MiniBatch) Measure(dst, x []float64, rng *rand.Rand) error {
 	// Reduce in chunk order: the same sums in the same order for every
 	// worker count.
 	d := b.d
+	st := sh.stride
 	copy(dst, sh.partial[:d])
 	for c := 1; c < sh.chunks; c++ {
-		floats.Add(dst, sh.partial[c*d:(c+1)*d])
+		floats.Add(dst, sh.partial[c*st:c*st+d])
 	}
 	sh.x, sh.idx = nil, nil
 	return nil
