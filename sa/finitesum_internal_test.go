@@ -2,6 +2,8 @@ package sa
 
 import (
 	"context"
+	"errors"
+	"math"
 	"math/rand/v2"
 	"testing"
 
@@ -72,5 +74,35 @@ func TestStepAllocs(t *testing.T) {
 				t.Errorf("%s: a run of 5 steps allocates %v times, of 40 steps %v: steps allocate", tc.name, a1, a2)
 			}
 		})
+	}
+}
+
+// TestCoreStepFiniteCheck checks the finiteness check of the update on
+// both of its paths (a plain loop below vectorKernelMin, gonum's kernels
+// from it): a non-finite measurement is ErrNotFinite, an update that
+// overflows is ErrDiverged, both leave the iterate as it was, and finite
+// iterates whose sum overflows are accepted.
+func TestCoreStepFiniteCheck(t *testing.T) {
+	for _, d := range []int{3, vectorKernelMin, 2 * vectorKernelMin} {
+		x0 := make([]float64, d)
+		for i := range x0 {
+			x0[i] = 1e308 // the sum of the iterate overflows; each entry is finite
+		}
+		c := newCore(x0, schedule.Constant(1), 0, nil, 0)
+		y := make([]float64, d)
+		if err := c.step(y); err != nil {
+			t.Fatalf("d=%d: finite update rejected: %v", d, err)
+		}
+		y[d-1] = math.NaN()
+		if err := c.step(y); !errors.Is(err, ErrNotFinite) {
+			t.Errorf("d=%d: NaN measurement: err = %v, want ErrNotFinite", d, err)
+		}
+		y[d-1] = -1e308 // x − y = 2e308 overflows
+		if err := c.step(y); !errors.Is(err, ErrDiverged) {
+			t.Errorf("d=%d: overflowing update: err = %v, want ErrDiverged", d, err)
+		}
+		if c.steps != 1 || c.x[d-1] != 1e308 {
+			t.Errorf("d=%d: failed steps changed the state: steps %d, x[last] %v", d, c.steps, c.x[d-1])
+		}
 	}
 }
