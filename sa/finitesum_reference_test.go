@@ -9,6 +9,7 @@ import (
 	"gonum.org/v1/gonum/floats"
 	"gonum.org/v1/gonum/mat"
 	"gonum.org/v1/gonum/optimize"
+	"gonum.org/v1/gonum/optimize/convex/lp"
 
 	"github.com/stochroot/stochroot/oracle"
 	"github.com/stochroot/stochroot/sa"
@@ -476,4 +477,101 @@ func TestReferenceLogisticBFGS(t *testing.T) {
 			}
 		}
 	})
+}
+
+// TestReferenceQuantileLP checks quantile regression with slopes against
+// the exact minimiser from linear programming: the regression quantile is
+// the solution of
+//
+//	minimise τ·Σu⁺_i + (1−τ)·Σu⁻_i   s.t.  z_iᵀ(β⁺ − β⁻) + u⁺_i − u⁻_i = y_i,
+//	β±, u± ≥ 0
+//
+// (Koenker & Bassett 1978, "Regression quantiles", Econometrica 46(1)),
+// solved here by gonum's optimize/convex/lp.Simplex; f* is its optimum
+// divided by n.
+//
+// BGD on the pinball loss is the subgradient method. With a_k the gain of
+// the step taken at x_k, G a bound on the subgradient norm and
+// R_1 = ‖x_1 − x*‖, the standard inequality
+// ‖x_{k+1} − x*‖² ≤ ‖x_k − x*‖² − 2a_k(f(x_k) − f*) + a_k²G² (Nesterov
+// 2004, "Introductory Lectures on Convex Optimization", §3.2.3), summed over
+// k = 1…K with a_k ≥ a_K and convexity of f, bounds the uniform average of
+// x_1…x_K (Result.Average with BurnIn 0):
+//
+//	f(x̄) − f* ≤ (R_1² + G²·Σ_{k=1}^{K} a_k²) / (2·K·a_K),
+//
+// with R_1 ≤ ‖x_0 − x*‖ + a_0·G and G = max(τ, 1−τ)·max_i ‖z_i‖.
+func TestReferenceQuantileLP(t *testing.T) {
+	n, p, tau := 120, 2, 0.7
+	rng := rand.New(rand.NewPCG(31, 32))
+	a := make([]float64, n*p)
+	y := make([]float64, n)
+	for i := range n {
+		a[i*p] = 2 * rng.Float64()
+		a[i*p+1] = rng.NormFloat64()
+		y[i] = 1 + 0.8*a[i*p] - 0.5*a[i*p+1] + rng.ExpFloat64() - 1
+	}
+	// Standard-form LP: variables (β⁺, β⁻, u⁺, u⁻), q = p+1 coefficients.
+	q := p + 1
+	nv := 2*q + 2*n
+	A := mat.NewDense(n, nv, nil)
+	c := make([]float64, nv)
+	basic := make([]int, n)
+	for i := range n {
+		z := append([]float64{1}, a[i*p:(i+1)*p]...)
+		for j := range q {
+			A.Set(i, j, z[j])
+			A.Set(i, q+j, -z[j])
+		}
+		A.Set(i, 2*q+i, 1)
+		A.Set(i, 2*q+n+i, -1)
+		c[2*q+i], c[2*q+n+i] = tau, 1-tau
+		if y[i] >= 0 {
+			basic[i] = 2*q + i
+		} else {
+			basic[i] = 2*q + n + i
+		}
+	}
+	opt, sol, err := lp.Simplex(c, A, y, 1e-10, basic)
+	if err != nil {
+		t.Fatal(err)
+	}
+	fStar := opt / float64(n)
+	xStar := make([]float64, q)
+	for j := range q {
+		xStar[j] = sol[j] - sol[q+j]
+	}
+
+	m, err := oracle.NewQuantile(oracle.Dense{Data: a, Cols: p}, y, tau, oracle.RegressionSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if v := m.Value(xStar); math.Abs(v-fStar) > 1e-9*math.Max(1, fStar) {
+		t.Fatalf("objective at the LP solution %v, LP optimum/n %v", v, fStar)
+	}
+	g, _ := oracle.NewFullBatch(m, oracle.BatchSettings{})
+	gain := schedule.Power{Scale: 0.5, Exponent: 0.5}
+	K := 40000
+	res, err := sa.MinimizeSum(context.Background(), g, make([]float64, q), sa.Settings{Gain: gain, MaxSteps: K})
+	if err != nil {
+		t.Fatal(err)
+	}
+
+	zmax := 0.0
+	for i := range n {
+		zmax = math.Max(zmax, math.Hypot(1, floats.Norm(a[i*p:(i+1)*p], 2)))
+	}
+	G := math.Max(tau, 1-tau) * zmax
+	R1 := floats.Norm(xStar, 2) + gain.Gain(0)*G // x_0 = 0
+	var sq float64
+	for k := 1; k <= K; k++ {
+		sq += gain.Gain(k) * gain.Gain(k)
+	}
+	bound := (R1*R1 + G*G*sq) / (2 * float64(K) * gain.Gain(K))
+	gap := m.Value(res.Average) - fStar
+	if !(gap <= bound) || gap < -1e-9 {
+		t.Errorf("f(x̄) − f* = %.3g, subgradient bound %.3g (x̄ = %.4g, LP x* = %.4g)", gap, bound, res.Average, xStar)
+	} else {
+		t.Logf("f(x̄) − f* = %.3g ≤ bound %.3g; x̄ = %.4g, LP x* = %.4g (f* = %.4g)", gap, bound, res.Average, xStar, fStar)
+	}
 }
