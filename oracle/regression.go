@@ -335,15 +335,24 @@ func (r *Regression) addRange(dst, x []float64, lo, hi int, w float64, scratch [
 		a := r.a[b*p : (b+rows)*p]
 		z := buf[:rows]
 		impl.Dgemv(blas.NoTrans, rows, p, 1, a, p, beta, 1, 0, z, 1)
+		b0 := 0.0
+		if off == 1 {
+			b0 = x[0]
+		}
+		yb := r.y[b : b+rows]
 		sum := 0.0
-		for k := range z {
-			zk := z[k]
-			if off == 1 {
-				zk += x[0]
+		if r.loss == SquaredLoss { // the common case, without a call per row
+			for k, zk := range z {
+				v := w * (zk + b0 - yb[k])
+				z[k] = v
+				sum += v
 			}
-			v := w * r.dLoss(zk, b+k)
-			z[k] = v
-			sum += v
+		} else {
+			for k, zk := range z {
+				v := w * r.dLoss(zk+b0, b+k)
+				z[k] = v
+				sum += v
+			}
 		}
 		if off == 1 {
 			dst[0] += sum
