@@ -182,7 +182,10 @@ func NewMiniBatch(f FiniteSum, s sampling.Sampler, size int, bs BatchSettings) (
 // NewFullBatch returns the full-batch gradient oracle of f: every Measure
 // writes the exact gradient (1/n) Σ ∇f_i(x), summed over i = 0, …, n−1 in a
 // fixed order (see the type documentation for the chunked order of large
-// batches). It draws no random numbers.
+// batches). It draws no random numbers. For the ready-made models
+// ([Regression]) the samples of a chunk are summed block by block with
+// matrix–vector products from gonum's BLAS, the same sum in another
+// rounding order, which streams the data at close to memory speed.
 func NewFullBatch(f FiniteSum, bs BatchSettings) (*MiniBatch, error) {
 	if f == nil {
 		return nil, fmt.Errorf("%w: finite sum is nil", ErrInvalid)
