@@ -185,7 +185,7 @@ func NewMiniBatch(f FiniteSum, s sampling.Sampler, size int, bs BatchSettings) (
 // batches). It draws no random numbers. For the ready-made models
 // ([Regression]) the samples of a chunk are summed block by block with
 // matrix–vector products from gonum's BLAS, the same sum in another
-// rounding order, which streams the data at close to memory speed.
+// rounding order, and faster than one sample at a time.
 func NewFullBatch(f FiniteSum, bs BatchSettings) (*MiniBatch, error) {
 	if f == nil {
 		return nil, fmt.Errorf("%w: finite sum is nil", ErrInvalid)
