@@ -7,6 +7,7 @@ import (
 	"runtime"
 	"sync"
 	"sync/atomic"
+	"time"
 
 	"gonum.org/v1/gonum/floats"
 
@@ -89,7 +90,10 @@ const (
 // for bit for every number of workers, including 1. Smaller batches are
 // evaluated on the calling goroutine. Worker goroutines are started on the
 // first parallel batch and stopped by [MiniBatch.Close] (or, if Close is
-// never called, when the MiniBatch becomes unreachable).
+// never called, when the MiniBatch becomes unreachable). After a batch
+// they keep watching for the next one for 50µs before they sleep, so that
+// the batches of a descent loop reach them without an operating-system
+// wake-up; that watching uses CPU time.
 //
 // # Counting
 //
@@ -123,8 +127,9 @@ type batchShared struct {
 	partial []float64 // chunks partial sums of d values, stride apart
 	stride  int       // d rounded up to whole cache lines, plus one line
 	scratch []float64 // chunks×rangeBlock scratch for rf
-	next    atomic.Int64
-	wg      sync.WaitGroup
+	next    atomic.Int64  // next chunk to claim
+	done    atomic.Int64  // chunks finished
+	gen     atomic.Uint64 // parallel batches started; spinning workers watch it
 
 	// The current job, written by the calling goroutine before the workers
 	// are woken.
@@ -268,7 +273,7 @@ func (sh *batchShared) accumulate(dst []float64, c, lo, hi int) {
 	}
 }
 
-// work evaluates chunks until none is left.
+// work evaluates chunks until none is left to claim.
 func (sh *batchShared) work() {
 	d := sh.d
 	for {
@@ -280,6 +285,53 @@ func (sh *batchShared) work() {
 		clear(p)
 		lo, hi := sh.chunkRange(c)
 		sh.accumulate(p, c, lo, hi)
+		sh.done.Add(1)
+	}
+}
+
+// spinWait is how long a worker keeps checking for the next batch after
+// finishing one before it parks. Waking a parked goroutine on an idle core
+// can take a hundred microseconds or more (the core must be woken by the
+// operating system), longer than a whole mini-batch; batches that follow
+// each other quickly, as in a descent loop, are picked up at once.
+const spinWait = 50 * time.Microsecond
+
+// spinFor waits up to spinWait for a batch after generation seen and
+// reports whether one started.
+func (sh *batchShared) spinFor(seen uint64) bool {
+	start := time.Now()
+	for i := 0; ; i++ {
+		if sh.gen.Load() != seen {
+			return true
+		}
+		if i%64 == 63 && time.Since(start) > spinWait {
+			return false
+		}
+	}
+}
+
+// serve is the loop of a worker goroutine: park until woken, help with
+// the batch, keep helping with the batches that follow within spinWait,
+// park again. It returns when wake is closed.
+func (sh *batchShared) serve(wake <-chan struct{}) {
+	for {
+		if _, ok := <-wake; !ok {
+			return
+		}
+		for {
+			seen := sh.gen.Load()
+			sh.work()
+			if !sh.spinFor(seen) {
+				break
+			}
+			select { // take the wake-up of the batch just seen, if sent
+			case _, ok := <-wake:
+				if !ok {
+					return
+				}
+			default:
+			}
+		}
 	}
 }
 
@@ -306,17 +358,25 @@ func (b *MiniBatch) Measure(dst, x []float64, rng *rand.Rand) error {
 		sh.x, sh.idx = nil, nil
 		return nil
 	}
+	// Publish the job: done is reset before next, so that a worker that
+	// claims a chunk of this batch counts it in this batch's done.
+	sh.done.Store(0)
 	sh.next.Store(0)
 	if b.workers > 1 && b.startPool() {
-		helpers := b.pool.n
-		sh.wg.Add(helpers)
-		for range helpers {
-			b.pool.wake <- struct{}{}
+		sh.gen.Add(1)
+		for range b.pool.n {
+			select { // wake parked workers; spinning ones see gen
+			case b.pool.wake <- struct{}{}:
+			default:
+			}
 		}
-		sh.work()
-		sh.wg.Wait()
-	} else {
-		sh.work()
+	}
+	// The calling goroutine works too, then waits only for chunks that
+	// workers have claimed and not finished (never for a worker that has
+	// not woken up yet).
+	sh.work()
+	for sh.done.Load() < int64(sh.chunks) {
+		runtime.Gosched()
 	}
 	// Reduce in chunk order: the same sums in the same order for every
 	// worker count.
@@ -336,15 +396,9 @@ func (b *MiniBatch) startPool() bool {
 	if b.pool != nil {
 		return !b.pool.closed
 	}
-	p := &workerPool{wake: make(chan struct{}), n: b.workers - 1}
-	sh := b.sh
+	p := &workerPool{wake: make(chan struct{}, b.workers-1), n: b.workers - 1}
 	for range p.n {
-		go func(wake <-chan struct{}) {
-			for range wake {
-				sh.work()
-				sh.wg.Done()
-			}
-		}(p.wake)
+		go b.sh.serve(p.wake)
 	}
 	b.pool = p
 	runtime.AddCleanup(b, func(p *workerPool) { p.stop() }, p)
