@@ -123,10 +123,10 @@ type batchShared struct {
 	rf      *Regression // f when it is a *Regression (fast contiguous ranges), or nil
 	d       int
 	chunks  int
-	size    int       // batch size
-	partial []float64 // chunks partial sums of d values, stride apart
-	stride  int       // d rounded up to whole cache lines, plus one line
-	scratch []float64 // chunks×rangeBlock scratch for rf
+	size    int           // batch size
+	partial []float64     // chunks partial sums of d values, stride apart
+	stride  int           // d rounded up to whole cache lines, plus one line
+	scratch []float64     // chunks×rangeBlock scratch for rf
 	next    atomic.Int64  // next chunk to claim
 	done    atomic.Int64  // chunks finished
 	gen     atomic.Uint64 // parallel batches started; spinning workers watch it
