@@ -54,7 +54,7 @@ type BatchSettings struct {
 	// Workers is the largest number of goroutines that evaluate one large
 	// batch (the calling goroutine counts as one). 0 means
 	// runtime.GOMAXPROCS(0) at construction; 1 evaluates every batch on the
-	// calling goroutine. The result does not depend on Workers: it is the
+	// calling goroutine. More workers than GOMAXPROCS only add overhead. The result does not depend on Workers: it is the
 	// same bit for bit for every value.
 	Workers int
 }
@@ -304,8 +304,11 @@ func (sh *batchShared) spinFor(seen uint64) bool {
 		if sh.gen.Load() != seen {
 			return true
 		}
-		if i%64 == 63 && time.Since(start) > spinWait {
-			return false
+		if i%64 == 63 {
+			if time.Since(start) > spinWait {
+				return false
+			}
+			runtime.Gosched() // let other goroutines of this P run
 		}
 	}
 }
