@@ -108,8 +108,8 @@ type RegressionSettings struct {
 // with x = (b₀, β₁, …, β_p) (no b₀ under NoIntercept). Per-sample gradients
 // cost one dot product and one axpy over the row and allocate nothing.
 //
-// Without Standardize, a Regression reads the caller's Data and targets in
-// place: they must not change while it is in use. A Regression is
+// A Regression reads the caller's targets, and without Standardize also
+// the caller's Data, in place: they must not change while it is in use. A Regression is
 // immutable and safe for concurrent use.
 type Regression struct {
 	loss      Loss
@@ -302,7 +302,7 @@ func (r *Regression) AddGradient(dst, x []float64, i int, w float64) {
 	}
 }
 
-// rangeBlock is the largest number of rows AddGradientRange handles per
+// rangeBlock is the largest number of rows addRange handles per
 // matrix–vector product; rangeBlockBytes bounds the block so that its
 // second read (for the transposed product) comes from cache.
 const (
