@@ -5,6 +5,12 @@
 // step). Each method's coefficients are compared with the exact
 // least-squares answer from gonum's QR factorisation.
 //
+// With a million trips in eight well-conditioned (standardised)
+// dimensions, one exact gradient is cheap and batch gradient descent is
+// both the fastest and the most accurate; the stochastic methods trade a
+// small error (far below the statistical error of the fit itself, compare
+// "exact LS" with "truth") for work that does not grow with the data set.
+//
 // The scenario and its numbers are invented for this demo.
 package main
 
