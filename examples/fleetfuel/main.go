@@ -9,7 +9,8 @@
 // dimensions, one exact gradient is cheap and batch gradient descent is
 // both the fastest and the most accurate; the stochastic methods trade a
 // small error (far below the statistical error of the fit itself, compare
-// "exact LS" with "truth") for work that does not grow with the data set.
+// "exact LS" with "truth") for steps whose cost does not grow with the
+// number of trips.
 //
 // The scenario and its numbers are invented for this demo.
 package main
