@@ -7,8 +7,8 @@
 //
 // With a million trips in eight well-conditioned (standardised)
 // dimensions, one exact gradient is cheap and batch gradient descent is
-// both the fastest and the most accurate; the stochastic methods trade a
-// small error (far below the statistical error of the fit itself, compare
+// both the fastest and the most accurate; the stochastic methods trade an
+// error of the order of the statistical error of the fit itself (compare
 // "exact LS" with "truth") for steps whose cost does not grow with the
 // number of trips.
 //
