@@ -6,6 +6,17 @@
 // Robbins–Monro driver looks for a root h(x*) = 0. A [Gradient] is the same
 // contract where h = ∇f, used by the minimisation drivers.
 //
+// # Finite sums
+//
+// A [FiniteSum] is an objective f(x) = (1/n) Σ f_i(x) that hands out one
+// sample gradient at a time. [NewMiniBatch] and [NewFullBatch] turn it into
+// a [Gradient] that averages the gradients of a batch of samples drawn by a
+// sampler of package sampling, or of every sample; large batches are
+// evaluated on several goroutines with the same result bit for bit.
+// [NewLeastSquares], [NewLogistic] and [NewQuantile] are ready-made finite
+// sums of linear models over row-major [Dense] data, with an optional L2
+// penalty and standardisation of the columns.
+//
 // # Randomness
 //
 // Every measurement receives the random stream it must use. The drivers

@@ -98,9 +98,9 @@ func BenchmarkStep(b *testing.B) {
 					avg[i] += (x[i] - avg[i]) * w
 				}
 			}
-			sink = avg[0]
+			stepSink = avg[0]
 		})
 	}
 }
 
-var sink float64
+var stepSink float64

@@ -52,6 +52,10 @@ type core struct {
 	lastNorm   float64     // ‖Y_k‖ of the last update (tracing only)
 }
 
+// vectorKernelMin is the dimension from which step uses gonum's vector
+// kernels; below it a plain loop has less fixed cost.
+const vectorKernelMin = 64
+
 // newCore copies x0 and prepares a core. The arguments must already be
 // validated.
 func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, maxAbs float64) *core {
@@ -79,12 +83,23 @@ func (c *core) step(y []float64) error {
 	}
 	x, next := c.x, c.next[:len(c.x)]
 	y = y[:len(x)]
-	// nan stays 0 while every next[i] is finite: v*0 is NaN for ±Inf and NaN.
+	// next = x − a·y, and a finiteness check of next: nan stays 0 while
+	// every entry is finite (v*0 is NaN for ±Inf and NaN). Long vectors
+	// use gonum's kernels instead (x + (−a)·y is the same value: negation
+	// is exact; the sum of next is finite when every entry is, and only
+	// when it is not, or the sum itself overflows, are the entries
+	// examined one by one).
 	nan := 0.0
-	for i, yi := range y {
-		v := x[i] - a*yi
-		next[i] = v
-		nan += v * 0 // before any limit: an infinite step must still fail
+	if len(x) < vectorKernelMin {
+		for i, yi := range y {
+			v := x[i] - a*yi
+			next[i] = v
+			nan += v * 0 // before any limit: an infinite step must still fail
+		}
+	} else {
+		floats.AddScaledTo(next, x, -a, y)
+		s := floats.Sum(next)
+		nan = s - s
 	}
 	if nan != 0 { // NaN compares unequal to 0
 		for i, yi := range y {
@@ -92,7 +107,11 @@ func (c *core) step(y []float64) error {
 				return &StepError{Step: c.steps, Err: fmt.Errorf("%w: Y[%d] = %v", ErrNotFinite, i, yi)}
 			}
 		}
-		return &StepError{Step: c.steps, Err: fmt.Errorf("%w: x − a·Y overflows (a = %v)", ErrDiverged, a)}
+		for _, v := range next {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return &StepError{Step: c.steps, Err: fmt.Errorf("%w: x − a·Y overflows (a = %v)", ErrDiverged, a)}
+			}
+		}
 	}
 	limited := false
 	if c.maxChange != nil {

@@ -19,6 +19,9 @@ const (
 	// Precise: every coordinate's confidence half-width met the tolerance
 	// of Settings.Precision.
 	Precise
+	// EpochLimit: another step would exceed Settings.MaxEpochs passes over
+	// the data (finite-sum driver).
+	EpochLimit
 )
 
 var reasonNames = [...]string{
@@ -28,6 +31,7 @@ var reasonNames = [...]string{
 	Cancelled:        "cancelled",
 	Failed:           "failed",
 	Precise:          "confidence intervals within tolerance",
+	EpochLimit:       "epoch budget reached",
 }
 
 // String returns a short description of the reason.

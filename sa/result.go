@@ -16,6 +16,10 @@ type Result struct {
 	// Measurements is the number of underlying measurements used, including
 	// those of a step that failed.
 	Measurements int
+	// Epochs is the work in passes over the data of a finite-sum run
+	// (MinimizeSum): sample gradients evaluated divided by the number of
+	// samples n. It is 0 for drivers without a data set.
+	Epochs float64
 	// Active reports whether the projection moved the last iterate, i.e.
 	// the constraint was active at the end.
 	Active bool

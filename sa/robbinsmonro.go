@@ -86,6 +86,9 @@ func NewSolver(h oracle.Field, x0 []float64, s Settings) (*Solver, error) {
 		return sv, err
 	}
 	sv.r.Settings = rs
+	if rs.MaxEpochs != 0 {
+		return sv, settingsErr("Settings.MaxEpochs = %d: RobbinsMonro has no data set to count passes over; use MaxSteps or MaxMeasurements", rs.MaxEpochs)
+	}
 	sv.perCall = 1
 	if c, ok := h.(oracle.Counted); ok {
 		sv.perCall = c.MeasurementsPerCall()
@@ -152,8 +155,22 @@ func (sv *Solver) Result() Result {
 // runPull is the pull loop shared by the drivers: check the stop rules,
 // measure at the current iterate, apply the update.
 func runPull(ctx context.Context, c *core, h oracle.Field, y []float64, rng *rand.Rand, perCall int, r *Result) error {
+	return runPullWith(ctx, c, h, y, rng, perCall, r, pullLimits{})
+}
+
+// pullLimits are stop rules of runPullWith beyond those in Settings that
+// every driver shares.
+type pullLimits struct {
+	// epochMeasurements > 0 stops the run with EpochLimit before a step
+	// that would take Measurements above it (MaxEpochs·n for finite sums).
+	epochMeasurements int
+}
+
+// runPullWith is runPull with the extra stop rules in lim.
+func runPullWith(ctx context.Context, c *core, h oracle.Field, y []float64, rng *rand.Rand, perCall int, r *Result, lim pullLimits) error {
 	maxSteps, maxMeas := r.Settings.MaxSteps, r.Settings.MaxMeasurements
 	c.configure(r.Settings, perCall)
+	maxEpochMeas := lim.epochMeasurements
 	done := ctx.Done()
 	for {
 		if maxSteps != NoLimit && c.steps >= maxSteps {
@@ -162,6 +179,10 @@ func runPull(ctx context.Context, c *core, h oracle.Field, y []float64, rng *ran
 		}
 		if maxMeas > 0 && r.Measurements+perCall > maxMeas {
 			r.Reason = MeasurementLimit
+			return nil
+		}
+		if maxEpochMeas > 0 && r.Measurements+perCall > maxEpochMeas {
+			r.Reason = EpochLimit
 			return nil
 		}
 		if done != nil {

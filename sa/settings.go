@@ -60,6 +60,12 @@ type Settings struct {
 	// Result.Trace.
 	Trace *Tracing
 
+	// MaxEpochs is the budget of passes over the data for the finite-sum
+	// driver MinimizeSum: the run stops before a step that would evaluate
+	// more than MaxEpochs·n sample gradients. 0 means no epoch budget.
+	// Drivers without a data set reject a value other than 0.
+	MaxEpochs int
+
 	// Seed is the one seed of the run; every random stream is derived from
 	// it (see the package documentation). The same seed gives the same
 	// result bit for bit. Zero is a valid seed.
@@ -85,6 +91,9 @@ func (s Settings) resolve(d int) (Settings, error) {
 	}
 	if s.MaxMeasurements < 0 {
 		return s, settingsErr("Settings.MaxMeasurements = %d: must be ≥ 0 (0 means no budget)", s.MaxMeasurements)
+	}
+	if s.MaxEpochs < 0 {
+		return s, settingsErr("Settings.MaxEpochs = %d: must be ≥ 0 (0 means no budget)", s.MaxEpochs)
 	}
 	if s.BurnIn < 0 {
 		return s, settingsErr("Settings.BurnIn = %d: must be ≥ 0", s.BurnIn)

@@ -1,0 +1,469 @@
+package oracle
+
+import (
+	"fmt"
+	"math"
+
+	"gonum.org/v1/gonum/blas"
+	"gonum.org/v1/gonum/blas/gonum"
+	"gonum.org/v1/gonum/floats"
+)
+
+// Dense is a data matrix of n rows and Cols columns stored row-major in
+// Data: feature j of sample i is Data[i*Cols+j]. It converts without
+// copying from gonum's mat.Dense when the stride equals the column count
+// (Dense{Data: m.RawMatrix().Data, Cols: c}).
+type Dense struct {
+	Data []float64
+	Cols int
+}
+
+// Rows returns the number of rows, len(Data)/Cols (0 if Cols < 1).
+func (m Dense) Rows() int {
+	if m.Cols < 1 {
+		return 0
+	}
+	return len(m.Data) / m.Cols
+}
+
+// DenseFromRows copies rows (one slice per sample) into a new Dense. It
+// returns an error wrapping [ErrData] when there are no rows, a row is
+// empty, or the rows have unequal lengths.
+func DenseFromRows(rows [][]float64) (Dense, error) {
+	if len(rows) == 0 {
+		return Dense{}, fmt.Errorf("%w: no rows", ErrData)
+	}
+	c := len(rows[0])
+	if c == 0 {
+		return Dense{}, fmt.Errorf("%w: row 0 is empty", ErrData)
+	}
+	data := make([]float64, 0, len(rows)*c)
+	for i, r := range rows {
+		if len(r) != c {
+			return Dense{}, fmt.Errorf("%w: row %d has %d values, row 0 has %d", ErrData, i, len(r), c)
+		}
+		data = append(data, r...)
+	}
+	return Dense{Data: data, Cols: c}, nil
+}
+
+// Loss names the sample loss of a [Regression].
+type Loss int
+
+const (
+	// SquaredLoss is f_i = ½(z_i − y_i)²: least squares.
+	SquaredLoss Loss = iota
+	// LogisticLoss is f_i = log(1 + e^{z_i}) − y_i·z_i with labels
+	// y_i ∈ {0, 1}: the negative log-likelihood of logistic regression.
+	LogisticLoss
+	// PinballLoss is f_i = ρ_τ(y_i − z_i) with ρ_τ(u) = u·(τ − 1{u<0}):
+	// quantile regression at level τ (Koenker & Bassett 1978,
+	// "Regression quantiles", Econometrica 46(1)).
+	PinballLoss
+)
+
+// String returns "squared", "logistic" or "pinball".
+func (l Loss) String() string {
+	switch l {
+	case SquaredLoss:
+		return "squared"
+	case LogisticLoss:
+		return "logistic"
+	case PinballLoss:
+		return "pinball"
+	}
+	return fmt.Sprintf("Loss(%d)", int(l))
+}
+
+// RegressionSettings holds the optional knobs of the regression models.
+// The zero value fits an intercept, no penalty, on the raw columns.
+type RegressionSettings struct {
+	// NoIntercept leaves out the intercept. By default the parameter
+	// vector is (b₀, β₁, …, β_p): intercept first, then one coefficient per
+	// column.
+	NoIntercept bool
+
+	// L2 ≥ 0 adds the ridge penalty (L2/2)·Σ_j β_j² to every sample loss
+	// (so also to their mean). The intercept is not penalised. Under
+	// Standardize the penalty applies to the standardised coefficients.
+	L2 float64
+
+	// Standardize works on standardised columns (a_ij − m_j)/s_j, with m_j
+	// the column mean and s_j its standard deviation (divisor n), which
+	// makes badly scaled data well conditioned for gradient methods. With
+	// NoIntercept the columns are scaled but not centred (m_j = 0, s_j the
+	// root mean square), because a centred model without an intercept is a
+	// different model. The data are copied; a constant column is an error.
+	// [Regression.ToOriginal] maps the fitted coefficients back to the
+	// units of the caller's data.
+	Standardize bool
+}
+
+// Regression is the finite sum of a linear model with one of the losses
+// [SquaredLoss], [LogisticLoss], [PinballLoss]: for sample i with features
+// a_i (row i of the data) and target y_i,
+//
+//	z_i = b₀ + Σ_j a_ij·β_j,   f_i(x) = loss(z_i, y_i) + (L2/2)·Σ_j β_j²,
+//
+// with x = (b₀, β₁, …, β_p) (no b₀ under NoIntercept). Per-sample gradients
+// cost one dot product and one axpy over the row and allocate nothing.
+//
+// A Regression reads the caller's targets, and without Standardize also
+// the caller's Data, in place: they must not change while it is in use. A Regression is
+// immutable and safe for concurrent use.
+type Regression struct {
+	loss      Loss
+	tau       float64
+	a         []float64 // n×p row-major (standardised copy or caller's)
+	y         []float64
+	n, p      int
+	off       int // 1 with an intercept, 0 without
+	l2        float64
+	mean, std []float64 // column centres and scales; nil without Standardize
+}
+
+// NewLeastSquares returns the least-squares finite sum of data x and
+// targets y: f(β) = (1/n) Σ ½(z_i − y_i)² (+ penalty). It returns an error
+// wrapping [ErrData] for empty data, a target count that does not match the
+// rows, NaN or ±Inf anywhere, or a constant column under Standardize.
+func NewLeastSquares(x Dense, y []float64, s RegressionSettings) (*Regression, error) {
+	return newRegression(SquaredLoss, 0, x, y, s)
+}
+
+// NewLogistic returns the logistic-regression finite sum of data x and
+// labels y ∈ {0, 1}: f(β) = (1/n) Σ [log(1 + e^{z_i}) − y_i·z_i]
+// (+ penalty). Besides the errors of [NewLeastSquares] it rejects labels
+// other than 0 and 1.
+func NewLogistic(x Dense, y []float64, s RegressionSettings) (*Regression, error) {
+	return newRegression(LogisticLoss, 0, x, y, s)
+}
+
+// NewQuantile returns the quantile-regression finite sum at level
+// 0 < tau < 1 of data x and targets y: f(β) = (1/n) Σ ρ_τ(y_i − z_i)
+// (+ penalty), ρ_τ(u) = u·(τ − 1{u<0}); tau = 0.5 is median (least
+// absolute deviation) regression. The loss is not differentiable where
+// z_i = y_i; AddGradient uses the subgradient 0 there. Use a decreasing
+// gain with averaging for it. Errors are those of [NewLeastSquares], and
+// tau outside (0, 1) wraps [ErrInvalid].
+func NewQuantile(x Dense, y []float64, tau float64, s RegressionSettings) (*Regression, error) {
+	if !(tau > 0 && tau < 1) {
+		return nil, fmt.Errorf("%w: quantile level tau = %v: must be in (0, 1)", ErrInvalid, tau)
+	}
+	return newRegression(PinballLoss, tau, x, y, s)
+}
+
+func newRegression(loss Loss, tau float64, x Dense, y []float64, s RegressionSettings) (*Regression, error) {
+	if x.Cols < 1 {
+		return nil, fmt.Errorf("%w: Dense.Cols = %d: must be ≥ 1", ErrData, x.Cols)
+	}
+	if len(x.Data) == 0 {
+		return nil, fmt.Errorf("%w: no samples", ErrData)
+	}
+	if len(x.Data)%x.Cols != 0 {
+		return nil, fmt.Errorf("%w: %d values do not make rows of %d columns", ErrData, len(x.Data), x.Cols)
+	}
+	n, p := len(x.Data)/x.Cols, x.Cols
+	if len(y) != n {
+		return nil, fmt.Errorf("%w: %d targets for %d rows", ErrData, len(y), n)
+	}
+	if !(s.L2 >= 0) || math.IsInf(s.L2, 0) {
+		return nil, fmt.Errorf("%w: RegressionSettings.L2 = %v: must be finite and ≥ 0", ErrInvalid, s.L2)
+	}
+	for k, v := range x.Data {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return nil, fmt.Errorf("%w: value %v in row %d, column %d", ErrData, v, k/p, k%p)
+		}
+	}
+	for i, v := range y {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return nil, fmt.Errorf("%w: target %v in row %d", ErrData, v, i)
+		}
+		if loss == LogisticLoss && v != 0 && v != 1 {
+			return nil, fmt.Errorf("%w: label %v in row %d: logistic regression needs labels 0 or 1", ErrData, v, i)
+		}
+	}
+	r := &Regression{loss: loss, tau: tau, a: x.Data, y: y, n: n, p: p, l2: s.L2}
+	if !s.NoIntercept {
+		r.off = 1
+	}
+	if s.Standardize {
+		if err := r.standardize(); err != nil {
+			return nil, err
+		}
+	}
+	return r, nil
+}
+
+// standardize replaces r.a by a standardised copy.
+func (r *Regression) standardize() error {
+	n, p := r.n, r.p
+	mean := make([]float64, p)
+	std := make([]float64, p)
+	if r.off == 1 {
+		for i := range n {
+			floats.Add(mean, r.a[i*p:(i+1)*p])
+		}
+		floats.Scale(1/float64(n), mean)
+	}
+	// Two-pass variance about the mean (accurate for data like NIST's with
+	// a large mean and small spread).
+	for i := range n {
+		row := r.a[i*p : (i+1)*p]
+		for j, v := range row {
+			dv := v - mean[j]
+			std[j] += dv * dv
+		}
+	}
+	a := make([]float64, n*p)
+	for j := range p {
+		std[j] = math.Sqrt(std[j] / float64(n))
+		// A column whose spread is at rounding level of its values is
+		// constant for every practical purpose.
+		if !(std[j] > 1e-12*math.Abs(mean[j])) || std[j] == 0 {
+			return fmt.Errorf("%w: column %d is constant (value %v): it cannot be standardised; drop it (the intercept already models a constant)", ErrData, j, r.a[j])
+		}
+	}
+	for i := range n {
+		src, dst := r.a[i*p:(i+1)*p], a[i*p:(i+1)*p]
+		for j, v := range src {
+			dst[j] = (v - mean[j]) / std[j]
+		}
+	}
+	r.a, r.mean, r.std = a, mean, std
+	return nil
+}
+
+// Len returns the number of samples n.
+func (r *Regression) Len() int { return r.n }
+
+// Dim returns the number of parameters: columns, plus one for the
+// intercept.
+func (r *Regression) Dim() int { return r.p + r.off }
+
+// Loss returns the loss of the model.
+func (r *Regression) Loss() Loss { return r.loss }
+
+// Standardized reports whether the model works on standardised columns;
+// the parameters it sees are then in standardised units (see ToOriginal).
+func (r *Regression) Standardized() bool { return r.std != nil }
+
+// margin returns z_i = b₀ + a_i·β.
+func (r *Regression) margin(x []float64, i int) float64 {
+	p := r.p
+	z := floats.Dot(r.a[i*p:(i+1)*p], x[r.off:])
+	if r.off == 1 {
+		z += x[0]
+	}
+	return z
+}
+
+// dLoss returns ∂loss/∂z at margin z for sample i.
+func (r *Regression) dLoss(z float64, i int) float64 {
+	switch r.loss {
+	case SquaredLoss:
+		return z - r.y[i]
+	case LogisticLoss:
+		return sigmoid(z) - r.y[i]
+	default: // PinballLoss
+		u := r.y[i] - z
+		switch {
+		case u > 0:
+			return -r.tau
+		case u < 0:
+			return 1 - r.tau
+		}
+		return 0
+	}
+}
+
+// AddGradient adds w·∇f_i(x) into dst:
+//
+//	dst[0] += w·ℓ'(z_i)   (intercept)
+//	dst[j] += w·ℓ'(z_i)·a_ij + w·L2·β_j
+//
+// It panics if i is out of range or len(x) or len(dst) differs from Dim().
+func (r *Regression) AddGradient(dst, x []float64, i int, w float64) {
+	if len(x) != r.p+r.off || len(dst) != len(x) {
+		panic("oracle: Regression length mismatch")
+	}
+	p := r.p
+	row := r.a[i*p : (i+1)*p]
+	z := floats.Dot(row, x[r.off:])
+	if r.off == 1 {
+		z += x[0]
+	}
+	g := w * r.dLoss(z, i)
+	if r.off == 1 {
+		dst[0] += g
+	}
+	floats.AddScaled(dst[r.off:], g, row)
+	if r.l2 != 0 {
+		floats.AddScaled(dst[r.off:], w*r.l2, x[r.off:])
+	}
+}
+
+// rangeBlock is the largest number of rows addRange handles per
+// matrix–vector product; rangeBlockBytes bounds the block so that its
+// second read (for the transposed product) comes from cache.
+const (
+	rangeBlock      = 64
+	rangeBlockBytes = 1 << 15
+)
+
+// addRange adds w·Σ_{i=lo}^{hi−1} ∇f_i(x) into dst, the same sum as
+// calling AddGradient for i = lo, …, hi−1, computed block by block with two
+// matrix–vector products (margins z = A_B·β + b₀, then
+// dst += A_Bᵀ·(w·ℓ'(z))) using gonum's BLAS kernels; the result may differ
+// from the one-at-a-time sum in the last bits (summation order). scratch
+// must hold rangeBlock values. The full-batch oracle uses it for a
+// *Regression. It allocates nothing and is safe for concurrent use with
+// different dst and scratch.
+func (r *Regression) addRange(dst, x []float64, lo, hi int, w float64, scratch []float64) {
+	if len(x) != r.p+r.off || len(dst) != len(x) {
+		panic("oracle: Regression length mismatch")
+	}
+	if lo < 0 || hi > r.n || lo > hi {
+		panic("oracle: Regression range out of bounds")
+	}
+	p, off := r.p, r.off
+	beta, g := x[off:], dst[off:]
+	blk := max(1, min(rangeBlock, rangeBlockBytes/(8*p)))
+	buf := scratch[:rangeBlock]
+	var impl gonum.Implementation
+	for b := lo; b < hi; b += blk {
+		rows := min(blk, hi-b)
+		a := r.a[b*p : (b+rows)*p]
+		z := buf[:rows]
+		impl.Dgemv(blas.NoTrans, rows, p, 1, a, p, beta, 1, 0, z, 1)
+		b0 := 0.0
+		if off == 1 {
+			b0 = x[0]
+		}
+		yb := r.y[b : b+rows]
+		sum := 0.0
+		if r.loss == SquaredLoss { // the common case, without a call per row
+			for k, zk := range z {
+				v := w * (zk + b0 - yb[k])
+				z[k] = v
+				sum += v
+			}
+		} else {
+			for k, zk := range z {
+				v := w * r.dLoss(zk+b0, b+k)
+				z[k] = v
+				sum += v
+			}
+		}
+		if off == 1 {
+			dst[0] += sum
+		}
+		impl.Dgemv(blas.Trans, rows, p, 1, a, p, z, 1, 1, g, 1)
+	}
+	if r.l2 != 0 {
+		floats.AddScaled(g, float64(hi-lo)*w*r.l2, beta)
+	}
+}
+
+// Value returns the objective f(x) = (1/n) Σ f_i(x), penalty included,
+// summed in sample order. It panics if len(x) differs from Dim().
+func (r *Regression) Value(x []float64) float64 {
+	if len(x) != r.p+r.off {
+		panic("oracle: Regression length mismatch")
+	}
+	var sum float64
+	for i := range r.n {
+		z := r.margin(x, i)
+		y := r.y[i]
+		switch r.loss {
+		case SquaredLoss:
+			sum += 0.5 * (z - y) * (z - y)
+		case LogisticLoss:
+			sum += softplus(z) - y*z
+		default:
+			u := y - z
+			if u < 0 {
+				sum += u * (r.tau - 1)
+			} else {
+				sum += u * r.tau
+			}
+		}
+	}
+	v := sum / float64(r.n)
+	if r.l2 != 0 {
+		b := x[r.off:]
+		v += 0.5 * r.l2 * floats.Dot(b, b)
+	}
+	return v
+}
+
+// ToOriginal maps parameters x of the model (standardised units under
+// Standardize) to coefficients in the units of the caller's data,
+//
+//	β_j = x_j / s_j,   b₀ = x₀ − Σ_j m_j·x_j / s_j,
+//
+// writes them into dst and returns dst. Without Standardize it copies x.
+// dst may be x. It panics if len(dst) or len(x) differs from Dim().
+func (r *Regression) ToOriginal(dst, x []float64) []float64 {
+	if len(x) != r.p+r.off || len(dst) != len(x) {
+		panic("oracle: Regression length mismatch")
+	}
+	copy(dst, x)
+	if r.std == nil {
+		return dst
+	}
+	b0 := 0.0
+	if r.off == 1 {
+		b0 = x[0]
+	}
+	for j := range r.p {
+		beta := x[r.off+j] / r.std[j]
+		b0 -= r.mean[j] * beta
+		dst[r.off+j] = beta
+	}
+	if r.off == 1 {
+		dst[0] = b0
+	}
+	return dst
+}
+
+// FromOriginal is the inverse of ToOriginal: it maps coefficients in the
+// units of the caller's data (a starting point, say) to the parameters the
+// model works with, writes them into dst and returns dst. dst may be x.
+// It panics if len(dst) or len(x) differs from Dim().
+func (r *Regression) FromOriginal(dst, x []float64) []float64 {
+	if len(x) != r.p+r.off || len(dst) != len(x) {
+		panic("oracle: Regression length mismatch")
+	}
+	copy(dst, x)
+	if r.std == nil {
+		return dst
+	}
+	b0 := 0.0
+	if r.off == 1 {
+		b0 = x[0]
+	}
+	for j := range r.p {
+		b0 += r.mean[j] * x[r.off+j]
+		dst[r.off+j] = x[r.off+j] * r.std[j]
+	}
+	if r.off == 1 {
+		dst[0] = b0
+	}
+	return dst
+}
+
+// sigmoid returns 1/(1+e^{−z}) without overflow.
+func sigmoid(z float64) float64 {
+	if z >= 0 {
+		return 1 / (1 + math.Exp(-z))
+	}
+	e := math.Exp(z)
+	return e / (1 + e)
+}
+
+// softplus returns log(1+e^z) without overflow.
+func softplus(z float64) float64 {
+	return max(z, 0) + math.Log1p(math.Exp(-math.Abs(z)))
+}
+
+var _ FiniteSum = (*Regression)(nil)

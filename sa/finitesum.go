@@ -1,0 +1,92 @@
+package sa
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"math/rand/v2"
+
+	"github.com/stochroot/stochroot/oracle"
+)
+
+// streamSample is the random stream of the batch sampler of MinimizeSum.
+const streamSample uint64 = 0x5eed_0301
+
+// MinimizeSum minimises a finite sum f(x) = (1/n) Σ f_i(x) by stochastic
+// gradient descent on batches: starting from x0 it iterates
+//
+//	x_{k+1} = Π( x_k − a_k·Y_k ),   Y_k = (1/|B_k|) Σ_{i∈B_k} ∇f_i(x_k),
+//
+// with the batches B_k of g, and keeps the Polyak–Ruppert average of the
+// iterates (Polyak & Juditsky 1992, SIAM J. Control Optim. 30(4)). The
+// batch oracle g decides the method:
+//
+//   - SGD: oracle.NewMiniBatch(f, sampler, 1, …), one sample per step;
+//   - mini-batch gradient descent (MBGD): oracle.NewMiniBatch(f, sampler,
+//     m, …), m samples per step;
+//   - batch gradient descent (BGD): oracle.NewFullBatch(f, …), the exact
+//     gradient every step.
+//
+// With sampling.Uniform the batches are drawn with replacement, with
+// sampling.Shuffled without replacement in a fresh order every epoch. For
+// SGD and MBGD use a decreasing gain (schedule.Power with 1/2 < Exponent <
+// 1) and report Result.Average (Result.Estimate); for BGD a constant gain
+// below 2/L, L the largest curvature of f, converges to the minimiser and
+// Result.X is the answer.
+//
+// The run stops on the first of: s.MaxSteps steps, the budget of
+// s.MaxMeasurements sample gradients, the budget of s.MaxEpochs passes over
+// the data (s.MaxEpochs·n sample gradients), cancellation of ctx, or a
+// failed step (a non-finite gradient, a bad gain, a diverging iterate).
+// Budgets are not errors: err is nil and Result.Reason says which budget
+// ended the run. Result.Measurements counts sample gradients and
+// Result.Epochs the passes over the data.
+//
+// The run starts with g.Reset(), so the same seed, settings, x0 and data
+// give the same Result bit for bit, whatever the number of workers of g.
+// The sampler draws from rand.NewPCG(s.Seed, streamSample). x0 is copied
+// and never modified. g must not be used by another goroutine during the
+// run.
+func MinimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Settings) (Result, error) {
+	r := Result{X: append([]float64(nil), x0...), Seed: s.Seed, Settings: s}
+	if g == nil {
+		return r, ErrNilOracle
+	}
+	d := len(x0)
+	if d == 0 {
+		return r, fmt.Errorf("%w: starting point has dimension 0", ErrDimension)
+	}
+	if g.Dim() != d {
+		return r, fmt.Errorf("%w: finite sum has dimension %d, starting point %d", ErrDimension, g.Dim(), d)
+	}
+	for i, v := range x0 {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return r, fmt.Errorf("%w: starting point x0[%d] = %v", ErrNotFinite, i, v)
+		}
+	}
+	rs, err := s.resolve(d)
+	if err != nil {
+		return r, err
+	}
+	r.Settings = rs
+	if rs.MaxSteps == NoLimit && rs.MaxMeasurements == 0 && rs.MaxEpochs == 0 && ctx.Done() == nil {
+		return r, settingsErr("Settings.MaxSteps is NoLimit with no measurement or epoch budget and a context that is never cancelled: the run would never stop")
+	}
+	n := g.Len()
+	var lim pullLimits
+	if rs.MaxEpochs > 0 {
+		if rs.MaxEpochs > math.MaxInt/n {
+			lim.epochMeasurements = math.MaxInt
+		} else {
+			lim.epochMeasurements = rs.MaxEpochs * n
+		}
+	}
+	g.Reset()
+	c := newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs)
+	rng := rand.New(rand.NewPCG(rs.Seed, streamSample))
+	y := make([]float64, d)
+	err = runPullWith(ctx, c, g, y, rng, g.MeasurementsPerCall(), &r, lim)
+	c.fill(&r)
+	r.Epochs = float64(r.Measurements) / float64(n)
+	return r, err
+}
