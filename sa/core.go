@@ -31,8 +31,9 @@ type core struct {
 	hasPrev bool
 
 	proj   Projection
-	active bool    // the projection moved the last iterate
-	maxAbs float64 // > 0: |x_i| above it is divergence
+	member Membership // proj's membership test, if it has one
+	active bool       // the projection moved the last iterate
+	maxAbs float64    // > 0: |x_i| above it is divergence
 }
 
 // newCore copies x0 and prepares a core. The arguments must already be
@@ -45,6 +46,7 @@ func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, 
 		burnIn: burnIn, gain: gain, proj: proj, maxAbs: maxAbs,
 	}
 	copy(c.x, x0)
+	c.member, _ = proj.(Membership)
 	if a, ok := gain.(schedule.Adaptive); ok {
 		c.adapt = a
 		c.prev = make([]float64, d)
@@ -80,6 +82,9 @@ func (c *core) step(y []float64) error {
 	active := false
 	if c.proj != nil {
 		active = c.proj.Project(next)
+		if err := c.checkProjected(next); err != nil {
+			return &StepError{Step: c.steps, Err: err}
+		}
 	}
 	if c.maxAbs > 0 {
 		for i, v := range next {
@@ -127,4 +132,24 @@ func (c *core) fill(r *Result) {
 	r.Averaged = c.nAvg
 	r.Steps = c.steps
 	r.Active = c.active
+}
+
+// checkProjected detects a projection that returned a non-finite point or,
+// when it can test membership, a point outside its own set.
+func (c *core) checkProjected(x []float64) error {
+	nan := 0.0
+	for _, v := range x {
+		nan += v * 0
+	}
+	if nan != 0 {
+		for i, v := range x {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return fmt.Errorf("%w: Π(x)[%d] = %v is not finite", ErrProjection, i, v)
+			}
+		}
+	}
+	if c.member != nil && !c.member.Contains(x) {
+		return fmt.Errorf("%w: Π(x) is outside the projection's own set (Contains reports false)", ErrProjection)
+	}
+	return nil
 }

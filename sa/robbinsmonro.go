@@ -36,6 +36,17 @@ const (
 // The Result is filled in on every return, with the last accepted iterate.
 // x0 is copied and never modified. The oracle receives the stream
 // rand.NewPCG(s.Seed, streamMeasure) and must not modify or retain x.
+//
+// An oracle that implements oracle.StepAware is told the step index k
+// (the number of updates applied so far) before every measurement; the
+// gradient-free adapters oracle.KieferWolfowitz and oracle.SPSA use it for
+// their perturbation size c_k, so that
+//
+//	g, _ := oracle.NewSPSA(f, p, oracle.SPSASettings{Sizes: c})
+//	res, err := sa.RobbinsMonro(ctx, g, x0, s)
+//
+// is SPSA minimisation of f, and Result.Measurements counts the 2 (or 2p
+// for Kiefer–Wolfowitz) function values each step uses.
 func RobbinsMonro(ctx context.Context, h oracle.Field, x0 []float64, s Settings) (Result, error) {
 	r := Result{X: append([]float64(nil), x0...), Seed: s.Seed, Settings: s}
 	d := len(x0)
@@ -73,6 +84,7 @@ func RobbinsMonro(ctx context.Context, h oracle.Field, x0 []float64, s Settings)
 func runPull(ctx context.Context, c *core, h oracle.Field, y []float64, rng *rand.Rand, perCall int, r *Result) error {
 	maxSteps, maxMeas := r.Settings.MaxSteps, r.Settings.MaxMeasurements
 	done := ctx.Done()
+	stepper, _ := h.(oracle.StepAware)
 	for {
 		if maxSteps != NoLimit && c.steps >= maxSteps {
 			r.Reason = StepLimit
@@ -89,6 +101,9 @@ func runPull(ctx context.Context, c *core, h oracle.Field, y []float64, rng *ran
 				return fmt.Errorf("sa: stopped before step %d: %w", c.steps, context.Cause(ctx))
 			default:
 			}
+		}
+		if stepper != nil {
+			stepper.SetStep(c.steps)
 		}
 		err := h.Measure(y, c.x, rng)
 		r.Measurements += perCall
