@@ -162,9 +162,14 @@ func checkJoint(m Method, a Schedule, c Sizes) Joint {
 	}
 	// Sums of the form Σ k^(−e) converge iff e > 1. Values within exactTol
 	// of a critical value are taken to be exactly on it when the exponents
-	// are estimates.
+	// are estimates, and within 1e-12 (rounding of decimal exponents such
+	// as 0.9 + 0.1) when they are exact.
+	tol := 1e-12
+	if !j.Proven {
+		tol = exactTol
+	}
 	snap := func(v, at float64) float64 {
-		if !j.Proven && math.Abs(v-at) < exactTol {
+		if math.Abs(v-at) < tol {
 			return at
 		}
 		return v
