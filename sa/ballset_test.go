@@ -185,3 +185,35 @@ func TestBadProjectionDetected(t *testing.T) {
 		}
 	}
 }
+
+func TestActiveStaysWhileIterateRests(t *testing.T) {
+	// Steps 0–9 push x against the bound 1 (projected), steps 10–14 measure
+	// 0 (the iterate rests on the bound: still active), and from step 15
+	// the measurement pulls inward (no longer active).
+	box := sa.Box{Lower: []float64{-1}, Upper: []float64{1}}
+	field := func() oracle.FieldFunc {
+		calls := 0
+		return func(dst, x []float64, _ *rand.Rand) error {
+			switch {
+			case calls < 10:
+				dst[0] = -5
+			case calls < 15:
+				dst[0] = 0
+			default:
+				dst[0] = 1
+			}
+			calls++
+			return nil
+		}
+	}
+	for _, tc := range []struct {
+		steps     int
+		active    bool
+		projected int
+	}{{10, true, 9}, {15, true, 9}, {16, false, 9}} {
+		r, err := sa.RobbinsMonro(context.Background(), field(), []float64{0}, sa.Settings{Gain: schedule.Constant(0.2), MaxSteps: tc.steps, Projection: box})
+		if err != nil || r.Active != tc.active || r.Projected != tc.projected {
+			t.Errorf("after %d steps: Active %v, Projected %d, err %v; want %v, %d", tc.steps, r.Active, r.Projected, err, tc.active, tc.projected)
+		}
+	}
+}

@@ -3,6 +3,7 @@ package sa
 import (
 	"fmt"
 	"math"
+	"slices"
 
 	"github.com/stochroot/stochroot/schedule"
 )
@@ -32,8 +33,12 @@ type core struct {
 
 	proj   Projection
 	member Membership // proj's membership test, if it has one
-	active bool       // the projection moved the last iterate
-	maxAbs float64    // > 0: |x_i| above it is divergence
+	// active: x was put where it is by the projection, and no step has
+	// moved it since (see Result.Active); projected counts the steps in
+	// which the projection moved the iterate.
+	active    bool
+	projected int
+	maxAbs    float64 // > 0: |x_i| above it is divergence
 }
 
 // newCore copies x0 and prepares a core. The arguments must already be
@@ -95,6 +100,15 @@ func (c *core) step(y []float64) error {
 	}
 	// Commit.
 	c.x, c.next = next, x
+	switch {
+	case active:
+		c.projected++
+	case c.active && slices.Equal(next, x):
+		// A step that did not move the iterate (a zero measurement, or an
+		// SPSA perturbation orthogonal to the gradient) leaves it on the
+		// boundary where the projection put it.
+		active = true
+	}
 	c.active = active
 	if c.adapt != nil {
 		var prev []float64
@@ -132,6 +146,7 @@ func (c *core) fill(r *Result) {
 	r.Averaged = c.nAvg
 	r.Steps = c.steps
 	r.Active = c.active
+	r.Projected = c.projected
 }
 
 // checkProjected detects a projection that returned a non-finite point or,

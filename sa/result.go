@@ -16,9 +16,17 @@ type Result struct {
 	// Measurements is the number of underlying measurements used, including
 	// those of a step that failed.
 	Measurements int
-	// Active reports whether the projection moved the last iterate, i.e.
-	// the constraint was active at the end.
+	// Active reports whether the constraint was active at the end: the
+	// last iterate x_n is a point the projection produced (it moved the
+	// iterate in the step that gave x_n, or in an earlier step after which
+	// the iterate has not moved). With noisy measurements near a boundary
+	// optimum, inward noise can leave x_n just inside the set, so also look
+	// at Projected; note that the Polyak–Ruppert average of points on a
+	// curved boundary (a Ball) lies strictly inside the set.
 	Active bool
+	// Projected is the number of steps in which the projection moved the
+	// iterate.
+	Projected int
 	// Reason says why the run stopped.
 	Reason Reason
 	// Seed is the seed the run used; Settings holds the resolved settings.
