@@ -5,8 +5,11 @@
 //
 // and the drivers that feed it measurements Y_k. [RobbinsMonro] pulls
 // measurements of a noisy field from an oracle (package oracle) to find its
-// root. The gain a_k comes from package schedule; Π is an optional
-// [Projection] such as [Box]; x̄_n is the Polyak–Ruppert average (Polyak &
+// root; with the gradient-free adapters of package oracle (Kiefer–Wolfowitz,
+// SPSA) the same driver minimises a function that can only be measured
+// with noise. The gain a_k comes from package schedule; Π is an optional
+// [Projection]: a [Box], a [Ball] or a caller's own [Set], checked after
+// every step ([ErrProjection]); x̄_n is the Polyak–Ruppert average (Polyak &
 // Juditsky 1992, "Acceleration of stochastic approximation by averaging",
 // SIAM J. Control Optim. 30(4)), which for gains decaying slower than 1/k
 // reaches the best possible asymptotic covariance without knowing the slope

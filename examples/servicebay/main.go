@@ -15,7 +15,9 @@
 //
 // Both methods get the same measurement budget and common random numbers
 // (the two days of a pair see the same cars). The rates are kept in a box
-// λ_i·1.05 ≤ μ_i ≤ λ_i + 10, so that no bay is ever overloaded.
+// λ_i + 0.25 ≤ μ_i ≤ λ_i + 10; the margin 0.25 exceeds the largest
+// perturbation size c_0 = 0.2, so that no simulated day, not even at a
+// perturbed rate μ ± c_k·Δ, has an overloaded bay.
 package main
 
 import (
@@ -71,7 +73,7 @@ func main() {
 	box := sa.Box{Lower: make([]float64, p), Upper: make([]float64, p)}
 	for i, lam := range arrival {
 		truth[i] = lam + math.Sqrt(waiting*lam/price[i])
-		box.Lower[i], box.Upper[i] = 1.05*lam, lam+10
+		box.Lower[i], box.Upper[i] = lam+0.25, lam+10
 	}
 	t0 := time.Now()
 	type outcome struct {
