@@ -87,17 +87,17 @@ func BenchmarkSPSAStep(b *testing.B) {
 }
 
 // spinIters is the number of iterations of spin that take about 1 ms of
-// CPU on this machine, calibrated once.
+// CPU on this machine, calibrated once from the fastest of 5 timings of
+// 2^16 iterations (the fastest is the least disturbed by other load).
 var spinIters = func() int {
-	n := 1 << 16
-	for {
+	const n = 1 << 16
+	best := time.Duration(math.MaxInt64)
+	for range 5 {
 		start := time.Now()
-		spin(n)
-		if d := time.Since(start); d >= 200*time.Microsecond {
-			return int(float64(n) * float64(time.Millisecond) / float64(d))
-		}
-		n *= 2
+		sink += spin(n)
+		best = min(best, time.Since(start))
 	}
+	return max(1, int(float64(n)*float64(time.Millisecond)/float64(best)))
 }()
 
 // spin does n dependent floating-point operations (CPU work that cannot be
@@ -138,4 +138,35 @@ func BenchmarkSPSAParallel(b *testing.B) {
 			}
 		})
 	}
+}
+
+// BenchmarkSPSAParallelSpeedup alternates one step on 1 worker and one on
+// 2 workers (measurements of about 1 ms CPU each), so that both see the
+// same machine load, and reports speedup = time(1 worker)/time(2 workers).
+func BenchmarkSPSAParallelSpeedup(b *testing.B) {
+	n := spinIters
+	f := oracle.ValueFunc(func(x []float64, rng *rand.Rand) (float64, error) {
+		return x[0] + 1e-12*spin(n) + rng.Float64(), nil
+	})
+	c := schedule.PowerSizes{Scale: 0.1}
+	g1, _ := oracle.NewSPSA(f, 10, oracle.SPSASettings{Sizes: c, Workers: 1})
+	g2, _ := oracle.NewSPSA(f, 10, oracle.SPSASettings{Sizes: c, Workers: 2})
+	x, dst := make([]float64, 10), make([]float64, 10)
+	r1, r2 := rand.New(rand.NewPCG(1, 2)), rand.New(rand.NewPCG(1, 2))
+	var t1, t2 time.Duration
+	b.ReportAllocs()
+	for b.Loop() {
+		s := time.Now()
+		if err := g1.Measure(dst, x, r1); err != nil {
+			b.Fatal(err)
+		}
+		m := time.Now()
+		if err := g2.Measure(dst, x, r2); err != nil {
+			b.Fatal(err)
+		}
+		t1 += m.Sub(s)
+		t2 += time.Since(m)
+	}
+	b.ReportMetric(float64(t1)/float64(t2), "speedup")
+	b.ReportMetric(float64(t1)/float64(b.N)/2/1e6, "ms/measurement")
 }
