@@ -415,3 +415,39 @@ func TestPilotGradientSize(t *testing.T) {
 }
 
 var errBoom = errors.New("simulation failed")
+
+func TestSPSAPerturbationIsSymmetricBernoulli(t *testing.T) {
+	// With f = x_0 and no noise, ĝ_i = Δ_0·Δ_i: ĝ_0 = 1 always and, for
+	// i ≠ 0, ĝ_i = ±1 with probability 1/2 each if Δ is symmetric
+	// Bernoulli (Spall 1992). Over n = 4000 draws the share of +1 is within
+	// 5·0.5/√n ≈ 0.04 of 1/2 (probability of a miss 6e-7 per coordinate).
+	// p = 70 spans two 64-bit words of signs.
+	const p, n = 70, 4000
+	f := &linear{b: append([]float64{1}, make([]float64, p-1)...)}
+	g, _ := oracle.NewSPSA(f, p, oracle.SPSASettings{Sizes: schedule.PowerSizes{Scale: 0.25}})
+	rng := rand.New(rand.NewPCG(8, 9))
+	x, dst := make([]float64, p), make([]float64, p)
+	plus := make([]int, p)
+	for range n {
+		if err := g.Measure(dst, x, rng); err != nil {
+			t.Fatal(err)
+		}
+		if math.Abs(dst[0]-1) > 1e-12 {
+			t.Fatalf("ĝ_0 = %v, want 1", dst[0])
+		}
+		for i, v := range dst {
+			if math.Abs(math.Abs(v)-1) > 1e-12 {
+				t.Fatalf("ĝ_%d = %v, want ±1", i, v)
+			}
+			if v > 0 {
+				plus[i]++
+			}
+		}
+	}
+	tol := 5 * 0.5 / math.Sqrt(n)
+	for i := 1; i < p; i++ {
+		if share := float64(plus[i]) / n; math.Abs(share-0.5) > tol {
+			t.Errorf("coordinate %d: share of +1 = %v, want 0.5 ± %.3g", i, share, tol)
+		}
+	}
+}
