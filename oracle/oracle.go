@@ -30,6 +30,26 @@
 // dst. It returns an error when the measurement could not be taken; the
 // drivers stop and report it. A measurement with NaN or ±Inf entries is
 // detected by the drivers and is an error too.
+//
+// # Gradient-free measurements
+//
+// When only a noisy value f̃(x) can be measured (one simulation run, one
+// observed cost), a [Value] supplies it, and [KieferWolfowitz] (central
+// finite differences, 2p values per gradient) or [SPSA] (simultaneous
+// perturbation, 2 or 1 values per gradient whatever p) turn it into a
+// [Gradient] for the drivers. They implement [StepAware] to learn the step
+// index k for their perturbation size c_k, [Counted] so that measurement
+// budgets count function values, and [Dimensioned]. On request the two
+// values of a pair share common random numbers, and the values of one
+// step are taken on worker goroutines with results that do not depend on
+// the number of workers. A panicking Value is recovered into a
+// [*PanicError] on every goroutine.
+//
+// The measurement points x ± c_k·e_i and x ± c_k·Δ are not projected onto
+// the constraint set of the run: keep the set at least c_0 (in every
+// coordinate) inside the region where f̃ can be measured. On a live system
+// the perturbed settings are applied for real, so bound c_k as well as x,
+// watch both, and keep a manual override.
 package oracle
 
 import (

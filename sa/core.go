@@ -3,6 +3,7 @@ package sa
 import (
 	"fmt"
 	"math"
+	"slices"
 
 	"gonum.org/v1/gonum/floats"
 
@@ -33,8 +34,13 @@ type core struct {
 	hasPrev bool
 
 	proj   Projection
-	active bool    // the projection moved the last iterate
-	maxAbs float64 // > 0: |x_i| above it is divergence
+	member Membership // proj's membership test, if it has one
+	// active: x was put where it is by the projection, and no step has
+	// moved it since (see Result.Active); projected counts the steps in
+	// which the projection moved the iterate.
+	active    bool
+	projected int
+	maxAbs    float64 // > 0: |x_i| above it is divergence
 
 	// maxChange, if not nil, bounds every update coordinate-wise before the
 	// projection: |x_{k+1,i} − x_{k,i}| ≤ maxChange[i] (a trust region of
@@ -66,6 +72,7 @@ func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, 
 		burnIn: burnIn, gain: gain, proj: proj, maxAbs: maxAbs,
 	}
 	copy(c.x, x0)
+	c.member, _ = proj.(Membership)
 	if a, ok := gain.(schedule.Adaptive); ok {
 		c.adapt = a
 		c.prev = make([]float64, d)
@@ -120,6 +127,9 @@ func (c *core) step(y []float64) error {
 	active := false
 	if c.proj != nil {
 		active = c.proj.Project(next)
+		if err := c.checkProjected(next); err != nil {
+			return &StepError{Step: c.steps, Err: err}
+		}
 	}
 	if c.maxAbs > 0 {
 		for i, v := range next {
@@ -130,6 +140,15 @@ func (c *core) step(y []float64) error {
 	}
 	// Commit.
 	c.x, c.next = next, x
+	switch {
+	case active:
+		c.projected++
+	case c.active && slices.Equal(next, x):
+		// A step that did not move the iterate (a zero measurement, or an
+		// SPSA perturbation orthogonal to the gradient) leaves it on the
+		// boundary where the projection put it.
+		active = true
+	}
 	c.active = active
 	c.limited = limited
 	c.lastGain = a
@@ -228,6 +247,7 @@ func (c *core) fill(r *Result) {
 	if c.trace != nil {
 		r.Trace = c.trace.snapshot(c)
 	}
+	r.Projected = c.projected
 }
 
 // clampChange moves next[i] to within ±m[i] of x[i] and reports whether any
@@ -304,4 +324,24 @@ func (c *core) setState(s coreState) {
 		c.hasPrev = true
 	}
 	c.active, c.limited = s.Active, s.Limited
+}
+
+// checkProjected detects a projection that returned a non-finite point or,
+// when it can test membership, a point outside its own set.
+func (c *core) checkProjected(x []float64) error {
+	nan := 0.0
+	for _, v := range x {
+		nan += v * 0
+	}
+	if nan != 0 {
+		for i, v := range x {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return fmt.Errorf("%w: Π(x)[%d] = %v is not finite", ErrProjection, i, v)
+			}
+		}
+	}
+	if c.member != nil && !c.member.Contains(x) {
+		return fmt.Errorf("%w: Π(x) is outside the projection's own set (Contains reports false)", ErrProjection)
+	}
+	return nil
 }

@@ -5,17 +5,20 @@
 //
 // and the drivers that feed it measurements Y_k. [RobbinsMonro] pulls
 // measurements of a noisy field from an oracle (package oracle) to find its
-// root. [MinimizeSum] minimises a finite sum f(x) = (1/n) Σ f_i(x) with
-// the gradients of batches of samples: SGD, mini-batch and batch gradient
-// descent are the one driver with different batch oracles
+// root; with the gradient-free adapters of package oracle (Kiefer–Wolfowitz,
+// SPSA) the same driver minimises a function that can only be measured
+// with noise. [MinimizeSum] minimises a finite sum f(x) = (1/n) Σ f_i(x)
+// with the gradients of batches of samples: SGD, mini-batch and batch
+// gradient descent are the one driver with different batch oracles
 // (oracle.NewMiniBatch, oracle.NewFullBatch). [Tuner] is the push side: a
 // long-lived object inside a running service that publishes the current
 // parameter to any number of goroutines and is handed the measurements they
 // observed at it; [QuantileTuner] and [SetpointTuner] wrap it for the two
 // commonest service targets (a timeout at a target quantile, a knob that
 // holds a measured level at a setpoint). The gain a_k comes from package
-// schedule; Π is an optional
-// [Projection] such as [Box]; x̄_n is the Polyak–Ruppert average (Polyak &
+// schedule; Π is an optional [Projection]: a [Box], a [Ball] or a caller's
+// own [Set], checked after every step ([ErrProjection]); x̄_n is the
+// Polyak–Ruppert average (Polyak &
 // Juditsky 1992, "Acceleration of stochastic approximation by averaging",
 // SIAM J. Control Optim. 30(4)), which for gains decaying slower than 1/k
 // reaches the best possible asymptotic covariance without knowing the slope

@@ -22,6 +22,9 @@ var (
 	ErrDiverged = errors.New("sa: iterate diverged")
 	// ErrGain reports a gain a_k that is negative, NaN or infinite.
 	ErrGain = errors.New("sa: gain is not a finite value ≥ 0")
+	// ErrProjection reports a projection that returned a non-finite point,
+	// or a point that its own membership test ([Membership]) rejects.
+	ErrProjection = errors.New("sa: projection returned a point that is not finite or not in its set")
 )
 
 // StepError is the error of a step that could not be applied. Step counts

@@ -20,9 +20,17 @@ type Result struct {
 	// (MinimizeSum): sample gradients evaluated divided by the number of
 	// samples n. It is 0 for drivers without a data set.
 	Epochs float64
-	// Active reports whether the projection moved the last iterate, i.e.
-	// the constraint was active at the end.
+	// Active reports whether the constraint was active at the end: the
+	// last iterate x_n is a point the projection produced (it moved the
+	// iterate in the step that gave x_n, or in an earlier step after which
+	// the iterate has not moved). With noisy measurements near a boundary
+	// optimum, inward noise can leave x_n just inside the set, so also look
+	// at Projected; note that the Polyak–Ruppert average of points on a
+	// curved boundary (a Ball) lies strictly inside the set.
 	Active bool
+	// Projected is the number of steps in which the projection moved the
+	// iterate.
+	Projected int
 	// ErrorBars are the batch-means standard errors, covariance and
 	// confidence intervals of Average (see Inference). Check Available (or
 	// Err) before use: they need Inference.MinBatches complete batches.

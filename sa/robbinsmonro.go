@@ -40,6 +40,17 @@ const (
 // The Result is filled in on every return, with the last accepted iterate.
 // x0 is copied and never modified. The oracle receives the stream
 // rand.NewPCG(s.Seed, streamMeasure) and must not modify or retain x.
+//
+// An oracle that implements oracle.StepAware is told the step index k
+// (the number of updates applied so far) before every measurement; the
+// gradient-free adapters oracle.KieferWolfowitz and oracle.SPSA use it for
+// their perturbation size c_k, so that
+//
+//	g, _ := oracle.NewSPSA(f, p, oracle.SPSASettings{Sizes: c})
+//	res, err := sa.RobbinsMonro(ctx, g, x0, s)
+//
+// is SPSA minimisation of f, and Result.Measurements counts the 2 (or 2p
+// for Kiefer–Wolfowitz) function values each step uses.
 func RobbinsMonro(ctx context.Context, h oracle.Field, x0 []float64, s Settings) (Result, error) {
 	sv, err := NewSolver(h, x0, s)
 	if err != nil {
@@ -122,6 +133,9 @@ func (sv *Solver) Step() error {
 	if sv.c == nil {
 		return fmt.Errorf("%w: the solver was not constructed successfully", ErrSettings)
 	}
+	if st, ok := sv.h.(oracle.StepAware); ok {
+		st.SetStep(sv.c.steps)
+	}
 	err := sv.h.Measure(sv.y, sv.c.x, sv.rng)
 	sv.r.Measurements += sv.perCall
 	if err != nil {
@@ -172,6 +186,7 @@ func runPullWith(ctx context.Context, c *core, h oracle.Field, y []float64, rng 
 	c.configure(r.Settings, perCall)
 	maxEpochMeas := lim.epochMeasurements
 	done := ctx.Done()
+	stepper, _ := h.(oracle.StepAware)
 	for {
 		if maxSteps != NoLimit && c.steps >= maxSteps {
 			r.Reason = StepLimit
@@ -192,6 +207,9 @@ func runPullWith(ctx context.Context, c *core, h oracle.Field, y []float64, rng 
 				return fmt.Errorf("sa: stopped before step %d: %w", c.steps, context.Cause(ctx))
 			default:
 			}
+		}
+		if stepper != nil {
+			stepper.SetStep(c.steps)
 		}
 		err := h.Measure(y, c.x, rng)
 		r.Measurements += perCall

@@ -286,3 +286,23 @@ func TestSolverStepHasErrorBars(t *testing.T) {
 	require.NotNil(t, r.Trace)
 	require.Greater(t, r.Trace.Len(), 0)
 }
+
+// stepRecorder records the step index the driver passes through
+// oracle.StepAware.
+type stepRecorder struct {
+	oracle.Field
+	ks []int
+}
+
+func (s *stepRecorder) SetStep(k int) { s.ks = append(s.ks, k) }
+
+func TestStepAwareThroughRunAndStep(t *testing.T) {
+	rec := &stepRecorder{Field: linear(1)}
+	sv, err := sa.NewSolver(rec, []float64{0}, sa.Settings{Gain: gain, MaxSteps: 5})
+	require.NoError(t, err)
+	require.NoError(t, sv.Step())
+	require.NoError(t, sv.Step())
+	_, err = sv.Run(context.Background())
+	require.NoError(t, err)
+	require.Equal(t, []int{0, 1, 2, 3, 4}, rec.ks)
+}

@@ -37,8 +37,10 @@ type Settings struct {
 	// every iterate after the first step.
 	BurnIn int
 
-	// Projection, if not nil, is applied after every update. Box is
-	// provided.
+	// Projection, if not nil, is applied after every update. Box, Ball
+	// and Set (a caller's own set) are provided. A projected point that is
+	// not finite, or that the projection's own Membership test rejects,
+	// stops the run with ErrProjection.
 	Projection Projection
 
 	// MaxAbs, if > 0, stops the run with ErrDiverged when an update would

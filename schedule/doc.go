@@ -7,6 +7,11 @@
 // from Robbins & Monro (1951), "A stochastic approximation method",
 // Ann. Math. Statist. 22(3).
 //
+// Perturbation sizes c_k for Kiefer–Wolfowitz and SPSA gradients are a
+// [Sizes] sequence ([PowerSizes] c/(k+1)^γ); [CheckKieferWolfowitz] and
+// [CheckSPSA] test the joint conditions on a_k and c_k, which differ by
+// method, and [SpallGains] chooses SPSA gains by Spall's (1998) guidelines.
+//
 // # Indexing
 //
 // Every schedule in this library counts from k = 0: the first update of a
