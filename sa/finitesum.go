@@ -2,7 +2,6 @@ package sa
 
 import (
 	"context"
-	"fmt"
 	"math"
 	"math/rand/v2"
 
@@ -53,16 +52,8 @@ func MinimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Setti
 		return r, ErrNilOracle
 	}
 	d := len(x0)
-	if d == 0 {
-		return r, fmt.Errorf("%w: starting point has dimension 0", ErrDimension)
-	}
-	if g.Dim() != d {
-		return r, fmt.Errorf("%w: finite sum has dimension %d, starting point %d", ErrDimension, g.Dim(), d)
-	}
-	for i, v := range x0 {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return r, fmt.Errorf("%w: starting point x0[%d] = %v", ErrNotFinite, i, v)
-		}
+	if err := checkStart(g, x0); err != nil {
+		return r, err
 	}
 	rs, err := s.resolve(d)
 	if err != nil {

@@ -77,20 +77,12 @@ type Solver struct {
 // and the settings as given.
 func NewSolver(h oracle.Field, x0 []float64, s Settings) (*Solver, error) {
 	sv := &Solver{r: Result{X: append([]float64(nil), x0...), Seed: s.Seed, Settings: s}}
-	d := len(x0)
 	if h == nil {
 		return sv, ErrNilOracle
 	}
-	if d == 0 {
-		return sv, fmt.Errorf("%w: starting point has dimension 0", ErrDimension)
-	}
-	if od, ok := h.(oracle.Dimensioned); ok && od.Dim() != d {
-		return sv, fmt.Errorf("%w: oracle has dimension %d, starting point %d", ErrDimension, od.Dim(), d)
-	}
-	for i, v := range x0 {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return sv, fmt.Errorf("%w: starting point x0[%d] = %v is not finite", ErrSettings, i, v)
-		}
+	d := len(x0)
+	if err := checkStart(h, x0); err != nil {
+		return sv, err
 	}
 	rs, err := s.resolve(d)
 	if err != nil {
@@ -164,6 +156,25 @@ func (sv *Solver) Result() Result {
 	}
 	sv.c.fill(&r)
 	return r
+}
+
+// checkStart checks the starting point of a pull run against the oracle:
+// dimension ≥ 1, equal to the oracle's own dimension where it declares one
+// (oracle.Dimensioned), and every coordinate finite.
+func checkStart(h oracle.Field, x0 []float64) error {
+	d := len(x0)
+	if d == 0 {
+		return fmt.Errorf("%w: starting point has dimension 0", ErrDimension)
+	}
+	if od, ok := h.(oracle.Dimensioned); ok && od.Dim() != d {
+		return fmt.Errorf("%w: oracle has dimension %d, starting point %d", ErrDimension, od.Dim(), d)
+	}
+	for i, v := range x0 {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return fmt.Errorf("%w: starting point x0[%d] = %v is not finite", ErrSettings, i, v)
+		}
+	}
+	return nil
 }
 
 // runPull is the pull loop shared by the drivers: check the stop rules,
