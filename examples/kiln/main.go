@@ -46,7 +46,7 @@ func main() {
 	gain := schedule.Power{Scale: 150, Exponent: 0.7}
 	fmt.Println("Kiln temperature for a 90% pass rate, from pass/fail test firings")
 	fmt.Printf("gain a_k = 150/(k+1)^0.7: %v\n\n", schedule.Check(gain))
-	fmt.Printf("%10s  %14s  %14s  %10s\n", "firings", "last T (°C)", "averaged T", "error")
+	fmt.Printf("%10s  %14s  %14s  %14s  %10s\n", "firings", "last T (°C)", "averaged T", "95% interval", "error")
 	for _, budget := range []int{1000, 10000, 100000, 1000000} {
 		res, err := sa.RobbinsMonro(context.Background(), oracle.Scalar(fireTile), []float64{1150}, sa.Settings{
 			Gain:            gain,
@@ -60,7 +60,12 @@ func main() {
 			log.Fatal(err)
 		}
 		est := res.Average[0]
-		fmt.Printf("%10d  %14.2f  %14.2f  %+10.2f\n", res.Measurements, res.X[0], est, est-truth)
+		// Batch-means error bars of the average, once enough batches exist.
+		ci := "not yet"
+		if eb := res.ErrorBars; eb.Available {
+			ci = fmt.Sprintf("± %.2f", eb.HalfWidth[0])
+		}
+		fmt.Printf("%10d  %14.2f  %14.2f  %14s  %+10.2f\n", res.Measurements, res.X[0], est, ci, est-truth)
 	}
 	fmt.Printf("\ntrue temperature (known only to the simulation): %.2f °C\n", truth)
 	// Asymptotic standard error of the averaged estimate, √(p(1−p)/n)/h'(T*),
