@@ -90,25 +90,28 @@ func (c *core) step(y []float64) error {
 	}
 	x, next := c.x, c.next[:len(c.x)]
 	y = y[:len(x)]
-	// next = x − a·y, and a finiteness check of next: nan stays 0 while
-	// every entry is finite (v*0 is NaN for ±Inf and NaN). Long vectors
+	// next = x − a·y, and a finiteness check of next. Long vectors
 	// use gonum's kernels instead (x + (−a)·y is the same value: negation
 	// is exact; the sum of next is finite when every entry is, and only
 	// when it is not, or the sum itself overflows, are the entries
 	// examined one by one).
-	nan := 0.0
+	bad := false
 	if len(x) < vectorKernelMin {
 		for i, yi := range y {
 			v := x[i] - a*yi
 			next[i] = v
-			nan += v * 0 // before any limit: an infinite step must still fail
+			// v − v is NaN exactly when v is ±Inf or NaN; a branch, not an
+			// accumulator, so that no chain of dependent adds forms.
+			if v-v != 0 {
+				bad = true
+			}
 		}
 	} else {
 		floats.AddScaledTo(next, x, -a, y)
 		s := floats.Sum(next)
-		nan = s - s
+		bad = s-s != 0
 	}
-	if nan != 0 { // NaN compares unequal to 0
+	if bad { // checked before any limit: an infinite step must still fail
 		for i, yi := range y {
 			if math.IsNaN(yi) || math.IsInf(yi, 0) {
 				return &StepError{Step: c.steps, Err: fmt.Errorf("%w: Y[%d] = %v", ErrNotFinite, i, yi)}
@@ -206,7 +209,10 @@ func (c *core) configure(s Settings, perCall int) {
 	c.configured = true
 	c.perCall = max(perCall, 1)
 	d := len(c.x)
-	if s.Inference.on() {
+	// Nothing will be averaged when the burn-in covers the whole step
+	// budget; then the error bars (O(d²) memory) are not set up at all.
+	nothingAveraged := s.MaxSteps != NoLimit && s.BurnIn >= s.MaxSteps
+	if s.Inference.on() && !nothingAveraged {
 		c.inf = newBatchMeans(d, s.Inference)
 		c.prec = s.Precision
 	}
