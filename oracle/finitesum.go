@@ -37,12 +37,11 @@ type FiniteSum interface {
 	AddGradient(dst, x []float64, i int, w float64)
 }
 
-// Errors of the finite-sum adapters and models. Test for them with
-// errors.Is; the messages say which argument and why.
+// Errors of the finite-sum adapters and models besides ErrSettings (which
+// also covers their invalid arguments: a batch size, a worker count, a model
+// parameter). Test for them with errors.Is; the messages say which argument
+// and why.
 var (
-	// ErrInvalid is wrapped by errors about invalid arguments (a batch
-	// size, a worker count, a model parameter).
-	ErrInvalid = errors.New("oracle: invalid argument")
 	// ErrData is wrapped by errors about invalid data (empty, ragged,
 	// non-finite, bad labels, a constant column under standardisation).
 	ErrData = errors.New("oracle: invalid data")
@@ -157,23 +156,23 @@ func (p *workerPool) stop() { p.once.Do(func() { close(p.wake) }) }
 // on: it calls s.Fill with the stream it is given and s.Reset on Reset.
 func NewMiniBatch(f FiniteSum, s sampling.Sampler, size int, bs BatchSettings) (*MiniBatch, error) {
 	if f == nil {
-		return nil, fmt.Errorf("%w: finite sum is nil", ErrInvalid)
+		return nil, fmt.Errorf("%w: finite sum is nil", ErrSettings)
 	}
 	if s == nil {
-		return nil, fmt.Errorf("%w: sampler is nil (use NewFullBatch for every sample)", ErrInvalid)
+		return nil, fmt.Errorf("%w: sampler is nil (use NewFullBatch for every sample)", ErrSettings)
 	}
 	n := f.Len()
 	if err := checkSum(f); err != nil {
 		return nil, err
 	}
 	if s.Len() != n {
-		return nil, fmt.Errorf("%w: sampler draws from %d items, finite sum has %d", ErrInvalid, s.Len(), n)
+		return nil, fmt.Errorf("%w: sampler draws from %d items, finite sum has %d", ErrSettings, s.Len(), n)
 	}
 	if size < 1 {
-		return nil, fmt.Errorf("%w: batch size %d: must be ≥ 1", ErrInvalid, size)
+		return nil, fmt.Errorf("%w: batch size %d: must be ≥ 1", ErrSettings, size)
 	}
 	if _, with := s.(*sampling.Uniform); !with && size > n {
-		return nil, fmt.Errorf("%w: batch size %d exceeds the %d samples and %T draws without replacement", ErrInvalid, size, n, s)
+		return nil, fmt.Errorf("%w: batch size %d exceeds the %d samples and %T draws without replacement", ErrSettings, size, n, s)
 	}
 	b, err := newBatch(f, size, bs)
 	if err != nil {
@@ -193,7 +192,7 @@ func NewMiniBatch(f FiniteSum, s sampling.Sampler, size int, bs BatchSettings) (
 // rounding order, and faster than one sample at a time.
 func NewFullBatch(f FiniteSum, bs BatchSettings) (*MiniBatch, error) {
 	if f == nil {
-		return nil, fmt.Errorf("%w: finite sum is nil", ErrInvalid)
+		return nil, fmt.Errorf("%w: finite sum is nil", ErrSettings)
 	}
 	if err := checkSum(f); err != nil {
 		return nil, err
@@ -217,7 +216,7 @@ func newBatch(f FiniteSum, size int, bs BatchSettings) (*MiniBatch, error) {
 	case w == 0:
 		w = runtime.GOMAXPROCS(0)
 	case w < 0:
-		return nil, fmt.Errorf("%w: BatchSettings.Workers = %d: must be ≥ 0", ErrInvalid, w)
+		return nil, fmt.Errorf("%w: BatchSettings.Workers = %d: must be ≥ 0", ErrSettings, w)
 	}
 	n, d := f.Len(), f.Dim()
 	chunks := chunkCount(size, d)

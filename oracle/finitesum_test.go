@@ -342,32 +342,32 @@ func TestBadInput(t *testing.T) {
 			_, err := oracle.NewLeastSquares(oracle.Dense{Data: []float64{1, 0, 2, 0, 3, 0}, Cols: 2}, y, oracle.RegressionSettings{Standardize: true, NoIntercept: true})
 			return err
 		}(), oracle.ErrData},
-		{"negative L2", func() error { _, err := oracle.NewLeastSquares(good, y, oracle.RegressionSettings{L2: -1}); return err }(), oracle.ErrInvalid},
+		{"negative L2", func() error { _, err := oracle.NewLeastSquares(good, y, oracle.RegressionSettings{L2: -1}); return err }(), oracle.ErrSettings},
 		{"NaN L2", func() error {
 			_, err := oracle.NewLeastSquares(good, y, oracle.RegressionSettings{L2: nan})
 			return err
-		}(), oracle.ErrInvalid},
-		{"tau 1", func() error { _, err := oracle.NewQuantile(good, y, 1, oracle.RegressionSettings{}); return err }(), oracle.ErrInvalid},
-		{"tau NaN", func() error { _, err := oracle.NewQuantile(good, y, nan, oracle.RegressionSettings{}); return err }(), oracle.ErrInvalid},
+		}(), oracle.ErrSettings},
+		{"tau 1", func() error { _, err := oracle.NewQuantile(good, y, 1, oracle.RegressionSettings{}); return err }(), oracle.ErrSettings},
+		{"tau NaN", func() error { _, err := oracle.NewQuantile(good, y, nan, oracle.RegressionSettings{}); return err }(), oracle.ErrSettings},
 		{"batch size 0", func() error {
 			_, err := oracle.NewMiniBatch(ls, sampling.NewUniform(3), 0, oracle.BatchSettings{})
 			return err
-		}(), oracle.ErrInvalid},
+		}(), oracle.ErrSettings},
 		{"batch above n without replacement", func() error {
 			_, err := oracle.NewMiniBatch(ls, sampling.NewShuffled(3), 4, oracle.BatchSettings{})
 			return err
-		}(), oracle.ErrInvalid},
+		}(), oracle.ErrSettings},
 		{"batch above n sequential", func() error {
 			_, err := oracle.NewMiniBatch(ls, sampling.NewSequential(3), 4, oracle.BatchSettings{})
 			return err
-		}(), oracle.ErrInvalid},
+		}(), oracle.ErrSettings},
 		{"sampler of other length", func() error {
 			_, err := oracle.NewMiniBatch(ls, sampling.NewUniform(4), 1, oracle.BatchSettings{})
 			return err
-		}(), oracle.ErrInvalid},
-		{"nil sampler", func() error { _, err := oracle.NewMiniBatch(ls, nil, 1, oracle.BatchSettings{}); return err }(), oracle.ErrInvalid},
-		{"nil finite sum", func() error { _, err := oracle.NewFullBatch(nil, oracle.BatchSettings{}); return err }(), oracle.ErrInvalid},
-		{"negative workers", func() error { _, err := oracle.NewFullBatch(ls, oracle.BatchSettings{Workers: -1}); return err }(), oracle.ErrInvalid},
+		}(), oracle.ErrSettings},
+		{"nil sampler", func() error { _, err := oracle.NewMiniBatch(ls, nil, 1, oracle.BatchSettings{}); return err }(), oracle.ErrSettings},
+		{"nil finite sum", func() error { _, err := oracle.NewFullBatch(nil, oracle.BatchSettings{}); return err }(), oracle.ErrSettings},
+		{"negative workers", func() error { _, err := oracle.NewFullBatch(ls, oracle.BatchSettings{Workers: -1}); return err }(), oracle.ErrSettings},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			if !errors.Is(tc.err, tc.want) {

@@ -144,10 +144,10 @@ func NewLogistic(x Dense, y []float64, s RegressionSettings) (*Regression, error
 // absolute deviation) regression. The loss is not differentiable where
 // z_i = y_i; AddGradient uses the subgradient 0 there. Use a decreasing
 // gain with averaging for it. Errors are those of [NewLeastSquares], and
-// tau outside (0, 1) wraps [ErrInvalid].
+// tau outside (0, 1) wraps [ErrSettings].
 func NewQuantile(x Dense, y []float64, tau float64, s RegressionSettings) (*Regression, error) {
 	if !(tau > 0 && tau < 1) {
-		return nil, fmt.Errorf("%w: quantile level tau = %v: must be in (0, 1)", ErrInvalid, tau)
+		return nil, fmt.Errorf("%w: quantile level tau = %v: must be in (0, 1)", ErrSettings, tau)
 	}
 	return newRegression(PinballLoss, tau, x, y, s)
 }
@@ -167,7 +167,7 @@ func newRegression(loss Loss, tau float64, x Dense, y []float64, s RegressionSet
 		return nil, fmt.Errorf("%w: %d targets for %d rows", ErrData, len(y), n)
 	}
 	if !(s.L2 >= 0) || math.IsInf(s.L2, 0) {
-		return nil, fmt.Errorf("%w: RegressionSettings.L2 = %v: must be finite and ≥ 0", ErrInvalid, s.L2)
+		return nil, fmt.Errorf("%w: RegressionSettings.L2 = %v: must be finite and ≥ 0", ErrSettings, s.L2)
 	}
 	for k, v := range x.Data {
 		if math.IsNaN(v) || math.IsInf(v, 0) {

@@ -44,10 +44,12 @@ type Sizes interface {
 	Size(k int) float64
 }
 
-// Errors of the gradient-free adapters. Test for them with errors.Is.
+// Errors of the oracle adapters. Test for them with errors.Is.
 var (
-	// ErrSettings is wrapped by every invalid-settings error of the
-	// adapters; the message names the field and says why.
+	// ErrSettings is wrapped by every error about invalid settings or
+	// arguments of the adapters and models of this package (gradient-free
+	// estimators, batch oracles, regressions); the message names the field
+	// or argument and says why.
 	ErrSettings = errors.New("oracle: invalid settings")
 	// ErrDimension reports a point or destination of the wrong length.
 	ErrDimension = errors.New("oracle: dimension mismatch")
