@@ -188,7 +188,7 @@ func (c *core) step(y []float64) error {
 		}
 	}
 	if c.trace != nil {
-		c.lastGain, c.lastNorm = a, floats.Norm(y, 2)
+		c.lastNorm = floats.Norm(y, 2)
 		if c.trace.due(c.steps) {
 			c.trace.record(c)
 		}

@@ -60,8 +60,8 @@ func MinimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Setti
 		return r, err
 	}
 	r.Settings = rs
-	if rs.MaxSteps == NoLimit && rs.MaxMeasurements == 0 && rs.MaxEpochs == 0 && ctx.Done() == nil {
-		return r, settingsErr("Settings.MaxSteps is NoLimit with no measurement or epoch budget and a context that is never cancelled: the run would never stop")
+	if err := checkStops(ctx, rs); err != nil {
+		return r, err
 	}
 	n := g.Len()
 	var lim pullLimits

@@ -112,8 +112,8 @@ func (sv *Solver) Run(ctx context.Context) (Result, error) {
 		return sv.Result(), fmt.Errorf("%w: the solver was not constructed successfully", ErrSettings)
 	}
 	rs := sv.r.Settings
-	if rs.MaxSteps == NoLimit && rs.MaxMeasurements == 0 && ctx.Done() == nil {
-		return sv.Result(), settingsErr("Settings.MaxSteps is NoLimit with no measurement budget and a context that is never cancelled: the run would never stop")
+	if err := checkStops(ctx, rs); err != nil {
+		return sv.Result(), err
 	}
 	err := runPull(ctx, sv.c, sv.h, sv.y, sv.rng, sv.perCall, &sv.r)
 	return sv.Result(), err
@@ -173,6 +173,16 @@ func checkStart(h oracle.Field, x0 []float64) error {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
 			return fmt.Errorf("%w: starting point x0[%d] = %v is not finite", ErrSettings, i, v)
 		}
+	}
+	return nil
+}
+
+// checkStops rejects resolved settings under which a pull run could never
+// stop: no step, measurement or epoch budget and a context that is never
+// cancelled.
+func checkStops(ctx context.Context, rs Settings) error {
+	if rs.MaxSteps == NoLimit && rs.MaxMeasurements == 0 && rs.MaxEpochs == 0 && ctx.Done() == nil {
+		return settingsErr("Settings.MaxSteps is NoLimit with no measurement or epoch budget and a context that is never cancelled: the run would never stop")
 	}
 	return nil
 }
