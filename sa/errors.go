@@ -25,6 +25,9 @@ var (
 	// ErrProjection reports a projection that returned a non-finite point,
 	// or a point that its own membership test ([Membership]) rejects.
 	ErrProjection = errors.New("sa: projection returned a point that is not finite or not in its set")
+	// ErrOutOfBounds reports a starting point (of a pull run or a tuner)
+	// or a tuner override outside the projection set or beyond MaxAbs.
+	ErrOutOfBounds = errors.New("sa: parameter outside its bounds")
 )
 
 // StepError is the error of a step that could not be applied. Step counts

@@ -59,6 +59,9 @@ func MinimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Setti
 	if err != nil {
 		return r, err
 	}
+	if err := checkInside("x0", x0, rs.Projection, rs.MaxAbs, ErrSettings); err != nil {
+		return r, err
+	}
 	r.Settings = rs
 	if err := checkStops(ctx, rs); err != nil {
 		return r, err

@@ -3,7 +3,6 @@ package sa
 import (
 	"context"
 	"fmt"
-	"math"
 	"math/rand/v2"
 
 	"github.com/stochroot/stochroot/oracle"
@@ -88,6 +87,9 @@ func NewSolver(h oracle.Field, x0 []float64, s Settings) (*Solver, error) {
 	if err != nil {
 		return sv, err
 	}
+	if err := checkInside("x0", x0, rs.Projection, rs.MaxAbs, ErrSettings); err != nil {
+		return sv, err
+	}
 	sv.r.Settings = rs
 	if rs.MaxEpochs != 0 {
 		return sv, settingsErr("Settings.MaxEpochs = %d: RobbinsMonro has no data set to count passes over; use MaxSteps or MaxMeasurements", rs.MaxEpochs)
@@ -159,8 +161,9 @@ func (sv *Solver) Result() Result {
 }
 
 // checkStart checks the starting point of a pull run against the oracle:
-// dimension ≥ 1, equal to the oracle's own dimension where it declares one
-// (oracle.Dimensioned), and every coordinate finite.
+// dimension ≥ 1 and equal to the oracle's own dimension where it declares
+// one (oracle.Dimensioned). Finiteness and bounds are checked by
+// checkInside once the settings are resolved.
 func checkStart(h oracle.Field, x0 []float64) error {
 	d := len(x0)
 	if d == 0 {
@@ -168,11 +171,6 @@ func checkStart(h oracle.Field, x0 []float64) error {
 	}
 	if od, ok := h.(oracle.Dimensioned); ok && od.Dim() != d {
 		return fmt.Errorf("%w: oracle has dimension %d, starting point %d", ErrDimension, od.Dim(), d)
-	}
-	for i, v := range x0 {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return fmt.Errorf("%w: starting point x0[%d] = %v is not finite", ErrSettings, i, v)
-		}
 	}
 	return nil
 }

@@ -26,9 +26,6 @@ var (
 	// version the tuner has not published yet: a bug in the caller, which
 	// must pass the version returned by Param.
 	ErrFutureVersion = errors.New("sa: report for a version not yet published")
-	// ErrOutOfBounds reports a starting point or override outside the
-	// projection set or beyond MaxAbs.
-	ErrOutOfBounds = errors.New("sa: parameter outside its bounds")
 	// ErrSnapshot is wrapped by every error of Restore.
 	ErrSnapshot = errors.New("sa: unusable snapshot")
 	// ErrSnapshotVersion reports a snapshot whose format version this
