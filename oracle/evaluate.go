@@ -1,6 +1,7 @@
 package oracle
 
 import (
+	"context"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -9,7 +10,10 @@ import (
 )
 
 // evaluator takes the m measurements of one step of a gradient-free
-// adapter, on the calling goroutine or spread over worker goroutines.
+// adapter, on the calling goroutine or spread over worker goroutines, and
+// holds everything one call of Measure needs (the point, c_k, the step,
+// the perturbations). An adapter takes an evaluator from its evalPool for
+// the duration of one call, so that concurrent calls never share one.
 //
 // Reproducibility: measurement j always receives the stream seeded by
 // seedPair(base, id(j)) and writes only vals[j] and errs[j]; which worker
@@ -22,8 +26,17 @@ type evaluator struct {
 	workers int  // ≥ 1
 	crn     bool // measurements 2i and 2i+1 share stream i
 
-	// point writes the point of measurement j into dst (len dim).
-	point func(dst []float64, j int)
+	// point writes the point of measurement j into dst (len dim); it is a
+	// function of the adapter that reads the call's state from e.
+	point func(e *evaluator, dst []float64, j int)
+
+	// The state of the current call.
+	ctx   context.Context
+	x     []float64
+	c     float64
+	k     int
+	delta []float64 // SPSA: q·dim entries ±1, perturbation r at [r·dim, (r+1)·dim)
+	dsrc  rand.PCG  // SPSA: source of delta
 
 	vals    []float64
 	errs    []error
@@ -35,9 +48,42 @@ type evaluator struct {
 	next atomic.Int64
 	wid  atomic.Int64 // hands out worker numbers 1, 2, … within a step
 	wg   sync.WaitGroup
-	// work is the bound method value e.work, made once so that starting a
-	// worker goroutine allocates no closure.
+	// work is the bound method value e.worker, made once so that starting
+	// a worker goroutine allocates no closure.
 	work func()
+}
+
+// evalPool hands out evaluators of one adapter: the one of the last call
+// when calls do not overlap (no allocation), a new one for each call that
+// overlaps another.
+type evalPool struct {
+	mu   sync.Mutex
+	free []*evaluator
+	mk   func() *evaluator
+}
+
+func (p *evalPool) get(ctx context.Context) *evaluator {
+	p.mu.Lock()
+	var e *evaluator
+	if n := len(p.free); n > 0 {
+		e = p.free[n-1]
+		p.free[n-1] = nil
+		p.free = p.free[:n-1]
+	}
+	p.mu.Unlock()
+	if e == nil {
+		e = p.mk()
+	}
+	e.ctx = ctx
+	return e
+}
+
+func (p *evalPool) put(e *evaluator) {
+	e.ctx, e.x = nil, nil
+	clear(e.errs)
+	p.mu.Lock()
+	p.free = append(p.free, e)
+	p.mu.Unlock()
 }
 
 func newEvaluator(f Value, dim, m, workers int, crn bool) *evaluator {
@@ -61,8 +107,10 @@ func newEvaluator(f Value, dim, m, workers int, crn bool) *evaluator {
 
 // run takes all m measurements of a step whose streams derive from base,
 // then reports the error of the lowest-numbered measurement that failed
-// (an error, a panic or a non-finite value), described by describe.
-func (e *evaluator) run(base uint64, describe func(j int) string) error {
+// (an error, a panic or a non-finite value), described by describe. Once
+// the call's context is done no further measurement starts; if it ended
+// the step early, the context's error is reported.
+func (e *evaluator) run(base uint64, describe func(e *evaluator, j int) string) error {
 	e.base = base
 	if e.workers == 1 {
 		for j := range e.m {
@@ -78,12 +126,19 @@ func (e *evaluator) run(base uint64, describe func(j int) string) error {
 		e.loop(0)
 		e.wg.Wait()
 	}
+	if e.ctx != nil && e.ctx.Err() != nil {
+		for _, err := range e.errs {
+			if err != nil {
+				return fmt.Errorf("measurements abandoned: %w", context.Cause(e.ctx))
+			}
+		}
+	}
 	for j, err := range e.errs {
 		if err != nil {
-			return fmt.Errorf("%s: %w", describe(j), err)
+			return fmt.Errorf("%s: %w", describe(e, j), err)
 		}
 		if v := e.vals[j]; math.IsNaN(v) || math.IsInf(v, 0) {
-			return fmt.Errorf("%s: %w: %v", describe(j), ErrNotFinite, v)
+			return fmt.Errorf("%s: %w: %v", describe(e, j), ErrNotFinite, v)
 		}
 	}
 	return nil
@@ -106,14 +161,28 @@ func (e *evaluator) loop(w int) {
 }
 
 func (e *evaluator) eval(w, j int) {
+	if e.ctx != nil {
+		if done := e.ctx.Done(); done != nil {
+			select {
+			case <-done:
+				e.vals[j], e.errs[j] = 0, context.Cause(e.ctx)
+				return
+			default:
+			}
+		}
+	}
 	id := uint64(j)
 	if e.crn {
 		id = uint64(j / 2)
 	}
 	e.srcs[w].Seed(seedPair(e.base, streamMeasurement+id))
 	x := e.scratch[w]
-	e.point(x, j)
-	e.vals[j], e.errs[j] = measureOne(e.f, x, e.rngs[w])
+	e.point(e, x, j)
+	ctx := e.ctx
+	if ctx == nil {
+		ctx = context.Background()
+	}
+	e.vals[j], e.errs[j] = measureOne(ctx, e.f, x, e.rngs[w])
 }
 
 // Stream numbers below the step's base seed: the perturbation vectors and

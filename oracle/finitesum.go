@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math/rand/v2"
 	"runtime"
+	"runtime/debug"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -100,8 +101,21 @@ const (
 // the drivers count measurement budgets in sample gradients. Epochs reports
 // the work done in passes over the data.
 //
-// A MiniBatch is not safe for concurrent use: it owns its sampler and its
-// scratch buffers.
+// # Concurrency
+//
+// A MiniBatch is not safe for concurrent use: it owns its sampler, whose
+// position within an epoch belongs to one run, and its scratch buffers.
+// Misuse is detected rather than left to corrupt a run: a Measure that
+// overlaps another fails with [ErrBusy], and a run that holds the
+// MiniBatch ([MiniBatch.Claim], as sa.MinimizeSum does for its whole run)
+// makes a second Claim fail with ErrBusy. Give each concurrent run its own
+// MiniBatch (they may share the FiniteSum).
+//
+// # Panics
+//
+// A panic of AddGradient, on the calling goroutine or on a worker, is
+// recovered and returned by Measure as a [*PanicError] (of the
+// lowest-numbered chunk that panicked); the worker goroutines survive it.
 type MiniBatch struct {
 	f       FiniteSum
 	s       sampling.Sampler // nil for a full batch
@@ -112,6 +126,8 @@ type MiniBatch struct {
 	workers int   // resolved worker count ≥ 1
 	sh      *batchShared
 	pool    *workerPool // nil until the first parallel batch
+	held    atomic.Bool // claimed by a run
+	inUse   atomic.Bool // inside Measure
 }
 
 // batchShared is the part of a MiniBatch the worker goroutines use. It does
@@ -126,6 +142,7 @@ type batchShared struct {
 	partial []float64     // chunks partial sums of d values, stride apart
 	stride  int           // d rounded up to whole cache lines, plus one line
 	scratch []float64     // chunks×rangeBlock scratch for rf
+	panics  []*PanicError // per chunk: the recovered panic of the current batch
 	next    atomic.Int64  // next chunk to claim
 	done    atomic.Int64  // chunks finished
 	gen     atomic.Uint64 // parallel batches started; spinning workers watch it
@@ -220,7 +237,7 @@ func newBatch(f FiniteSum, size int, bs BatchSettings) (*MiniBatch, error) {
 	}
 	n, d := f.Len(), f.Dim()
 	chunks := chunkCount(size, d)
-	sh := &batchShared{f: f, d: d, chunks: chunks, size: size}
+	sh := &batchShared{f: f, d: d, chunks: chunks, size: size, panics: make([]*PanicError, chunks)}
 	// Only the concrete model type takes the block path: a wrapper that
 	// embeds a *Regression and overrides AddGradient must not be bypassed.
 	sh.rf, _ = f.(*Regression)
@@ -283,9 +300,35 @@ func (sh *batchShared) work() {
 		p := sh.partial[c*sh.stride : c*sh.stride+d]
 		clear(p)
 		lo, hi := sh.chunkRange(c)
-		sh.accumulate(p, c, lo, hi)
+		sh.safeAccumulate(p, c, lo, hi)
 		sh.done.Add(1)
 	}
+}
+
+// safeAccumulate is accumulate with a panic of the finite sum recovered
+// into sh.panics[c].
+func (sh *batchShared) safeAccumulate(dst []float64, c, lo, hi int) {
+	defer func() {
+		if p := recover(); p != nil {
+			sh.panics[c] = &PanicError{Value: p, Stack: debug.Stack()}
+		}
+	}()
+	sh.accumulate(dst, c, lo, hi)
+}
+
+// firstPanic returns the panic of the lowest-numbered chunk of the batch,
+// or nil, and clears them all for the next batch.
+func (sh *batchShared) firstPanic() error {
+	var first error
+	for c, p := range sh.panics {
+		if p != nil {
+			if first == nil {
+				first = fmt.Errorf("oracle: gradient of batch chunk %d of %d: %w", c+1, sh.chunks, p)
+			}
+			sh.panics[c] = nil
+		}
+	}
+	return first
 }
 
 // spinWait is how long a worker keeps checking for the next batch after
@@ -341,12 +384,18 @@ func (sh *batchShared) serve(wake <-chan struct{}) {
 // from the sampler with rng (a full batch uses no randomness and accepts a
 // nil rng). It panics if len(dst) or len(x) differs from Dim(). It does
 // not modify or retain x, and it allocates nothing once the worker
-// goroutines are running. It never returns an error; non-finite values in
-// dst are left for the driver to detect.
+// goroutines are running. It returns an error wrapping [ErrBusy] when
+// another Measure of b is under way (dst is then unchanged), and a
+// [*PanicError] when AddGradient panicked (dst is then unspecified);
+// non-finite values in dst are left for the driver to detect.
 func (b *MiniBatch) Measure(dst, x []float64, rng *rand.Rand) error {
 	if len(dst) != b.d || len(x) != b.d {
 		panic("oracle: MiniBatch length mismatch")
 	}
+	if !b.inUse.CompareAndSwap(false, true) {
+		return fmt.Errorf("%w: two Measure calls overlap; give each run its own MiniBatch", ErrBusy)
+	}
+	defer b.inUse.Store(false)
 	sh := b.sh
 	sh.x, sh.w, sh.idx = x, 1/float64(b.size), nil
 	if b.s != nil {
@@ -356,9 +405,9 @@ func (b *MiniBatch) Measure(dst, x []float64, rng *rand.Rand) error {
 	b.evals += b.size
 	if sh.chunks == 1 {
 		clear(dst)
-		sh.accumulate(dst, 0, 0, b.size)
+		sh.safeAccumulate(dst, 0, 0, b.size)
 		sh.x, sh.idx = nil, nil
-		return nil
+		return sh.firstPanic()
 	}
 	// Publish the job: done is reset before next, so that a worker that
 	// claims a chunk of this batch counts it in this batch's done.
@@ -389,8 +438,22 @@ func (b *MiniBatch) Measure(dst, x []float64, rng *rand.Rand) error {
 		floats.Add(dst, sh.partial[c*st:c*st+d])
 	}
 	sh.x, sh.idx = nil, nil
+	return sh.firstPanic()
+}
+
+// Claim marks b as held by one run until [MiniBatch.Release], so that a
+// second run started on the same MiniBatch fails at once with an error
+// wrapping [ErrBusy] instead of mixing its batches (and its Reset) into
+// the first run's. sa.MinimizeSum claims its oracle for the whole run.
+func (b *MiniBatch) Claim() error {
+	if !b.held.CompareAndSwap(false, true) {
+		return fmt.Errorf("%w: the MiniBatch is held by another run; give each run its own", ErrBusy)
+	}
 	return nil
 }
+
+// Release ends a [MiniBatch.Claim].
+func (b *MiniBatch) Release() { b.held.Store(false) }
 
 // startPool starts the worker goroutines if they are not running and
 // reports whether they are.

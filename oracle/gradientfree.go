@@ -1,9 +1,11 @@
 package oracle
 
 import (
+	"context"
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"sync/atomic"
 
 	"gonum.org/v1/gonum/floats"
 )
@@ -39,18 +41,21 @@ type KieferWolfowitzSettings struct {
 // of the two points as rounded in floating point. One gradient uses 2p
 // measurements ([KieferWolfowitz.MeasurementsPerCall]).
 //
-// The step index k reaches the adapter through [StepAware]: the drivers of
-// package sa call SetStep before every Measure.
+// The step index k reaches the adapter with the call: the drivers of
+// package sa call [KieferWolfowitz.MeasureContext] with the run's context
+// and k. Measure uses the step last set by SetStep.
 //
-// A KieferWolfowitz owns its scratch buffers and is not safe for concurrent
-// use: give each run its own. Measure allocates nothing when Workers is 1.
+// A KieferWolfowitz may be shared by concurrent runs: each call takes
+// scratch buffers of its own (reused by the next call that does not
+// overlap it), provided the Value is safe for concurrent use. Only
+// SetStep followed by Measure is a two-call protocol that concurrent
+// callers cannot share; they use MeasureContext. A call allocates nothing
+// when Workers is 1 and no other call overlaps it.
 type KieferWolfowitz struct {
 	dim   int
 	sizes Sizes
-	k     int
-	x     []float64 // the point of the current step, only during Measure
-	c     float64
-	ev    *evaluator
+	step  atomic.Int64 // k for Measure, set by SetStep
+	pool  evalPool
 }
 
 // NewKieferWolfowitz returns the central-difference gradient of f in
@@ -61,10 +66,34 @@ func NewKieferWolfowitz(f Value, dim int, s KieferWolfowitzSettings) (*KieferWol
 	if err := checkCommon(f, dim, s.Sizes, s.Workers); err != nil {
 		return nil, err
 	}
+	if err := checkMemory("dimension", dim, 2*float64(dim)+float64(max(1, min(s.Workers, 2*dim)))*float64(dim)); err != nil {
+		return nil, err
+	}
 	g := &KieferWolfowitz{dim: dim, sizes: s.Sizes}
-	g.ev = newEvaluator(f, dim, 2*dim, s.Workers, s.CommonRandomNumbers)
-	g.ev.point = g.point
+	workers, crn := s.Workers, s.CommonRandomNumbers
+	g.pool.mk = func() *evaluator {
+		e := newEvaluator(f, dim, 2*dim, workers, crn)
+		e.point = kwPoint
+		return e
+	}
+	g.pool.free = []*evaluator{g.pool.mk()}
 	return g, nil
+}
+
+// MaxScratchBytes is the most scratch memory, in bytes, that one call of a
+// gradient-free adapter may need (the points, values and perturbations of
+// a step): 1 GiB. Constructors refuse larger settings with an error that
+// names the setting and the bytes it would need, instead of failing in the
+// allocator.
+const MaxScratchBytes = 1 << 30
+
+// checkMemory refuses a setting whose scratch of floats float64 values
+// would exceed MaxScratchBytes.
+func checkMemory(field string, value int, floats float64) error {
+	if b := 8 * floats; b > MaxScratchBytes {
+		return fmt.Errorf("%w: %s %d needs %.3g bytes of scratch per call, more than MaxScratchBytes (%d)", ErrSettings, field, value, b, MaxScratchBytes)
+	}
+	return nil
 }
 
 func checkCommon(f Value, dim int, sizes Sizes, workers int) error {
@@ -86,46 +115,54 @@ func checkCommon(f Value, dim int, sizes Sizes, workers int) error {
 	return nil
 }
 
-// point writes x ± c·e_i for measurement j = 2i (plus) or 2i+1 (minus).
-func (g *KieferWolfowitz) point(dst []float64, j int) {
-	copy(dst, g.x)
+// kwPoint writes x ± c·e_i for measurement j = 2i (plus) or 2i+1 (minus).
+func kwPoint(e *evaluator, dst []float64, j int) {
+	copy(dst, e.x)
 	if j&1 == 0 {
-		dst[j>>1] += g.c
+		dst[j>>1] += e.c
 	} else {
-		dst[j>>1] -= g.c
+		dst[j>>1] -= e.c
 	}
 }
 
-func (g *KieferWolfowitz) describe(j int) string {
+func kwDescribe(e *evaluator, j int) string {
 	sign := "+"
 	if j&1 == 1 {
 		sign = "−"
 	}
-	return fmt.Sprintf("Kiefer–Wolfowitz measurement %d of %d, at x %s c_%d·e_%d", j+1, 2*g.dim, sign, g.k, j>>1)
+	return fmt.Sprintf("Kiefer–Wolfowitz measurement %d of %d, at x %s c_%d·e_%d", j+1, e.m, sign, e.k, j>>1)
 }
 
-// Measure writes the central-difference gradient at x into dst, using the
-// perturbation size c_k of the step set by SetStep. It draws one number
-// from rng and derives every measurement's stream from it. On error dst is
-// left unchanged; the error names the failing measurement and wraps
+// Measure is MeasureContext with context.Background() and the step set by
+// SetStep (0 if it was never called).
+func (g *KieferWolfowitz) Measure(dst, x []float64, rng *rand.Rand) error {
+	return g.MeasureContext(context.Background(), int(g.step.Load()), dst, x, rng)
+}
+
+// MeasureContext writes the central-difference gradient at x into dst,
+// using the perturbation size c_k of step k. It draws one number from rng
+// and derives every measurement's stream from it. A Value that implements
+// [ContextValue] receives ctx; once ctx is done no further measurement of
+// the step starts and the error wraps the context's. On error dst is left
+// unchanged; the error names the failing measurement and wraps
 // [ErrDimension], [ErrSize], [ErrNotFinite], [ErrPanic] or the Value's own
 // error. When several measurements fail, the lowest-numbered one is
 // reported, whatever the worker count.
-func (g *KieferWolfowitz) Measure(dst, x []float64, rng *rand.Rand) error {
+func (g *KieferWolfowitz) MeasureContext(ctx context.Context, k int, dst, x []float64, rng *rand.Rand) error {
 	if len(x) != g.dim || len(dst) != g.dim {
 		return fmt.Errorf("%w: Kiefer–Wolfowitz of dimension %d given x of length %d and dst of length %d", ErrDimension, g.dim, len(x), len(dst))
 	}
-	c, err := size(g.sizes, g.k)
+	c, err := size(g.sizes, k)
 	if err != nil {
 		return err
 	}
-	g.x, g.c = x, c
-	err = g.ev.run(rng.Uint64(), g.describe)
-	g.x = nil
-	if err != nil {
+	e := g.pool.get(ctx)
+	defer g.pool.put(e)
+	e.x, e.c, e.k = x, c, k
+	if err := e.run(rng.Uint64(), kwDescribe); err != nil {
 		return err
 	}
-	v := g.ev.vals
+	v := e.vals
 	inv := 1 / (2 * c)
 	for i := range dst {
 		dst[i] = (v[2*i] - v[2*i+1]) * inv
@@ -133,8 +170,9 @@ func (g *KieferWolfowitz) Measure(dst, x []float64, rng *rand.Rand) error {
 	return nil
 }
 
-// SetStep sets the step index k used for c_k by the next Measure.
-func (g *KieferWolfowitz) SetStep(k int) { g.k = k }
+// SetStep sets the step index k used for c_k by later calls of Measure
+// (not MeasureContext, which is given k).
+func (g *KieferWolfowitz) SetStep(k int) { g.step.Store(int64(k)) }
 
 // Dim returns the dimension p.
 func (g *KieferWolfowitz) Dim() int { return g.dim }
@@ -198,22 +236,22 @@ type SPSASettings struct {
 // independent Δ. Each gradient uses 2q (or q) measurements
 // ([SPSA.MeasurementsPerCall]).
 //
-// The step index k reaches the adapter through [StepAware]: the drivers of
-// package sa call SetStep before every Measure.
+// The step index k reaches the adapter with the call: the drivers of
+// package sa call [SPSA.MeasureContext] with the run's context and k.
+// Measure uses the step last set by SetStep.
 //
-// An SPSA owns its scratch buffers and is not safe for concurrent use: give
-// each run its own. Measure allocates nothing when Workers is 1.
+// An SPSA may be shared by concurrent runs, as a [KieferWolfowitz] may:
+// each call takes scratch of its own, reused by the next call that does
+// not overlap it. A call allocates nothing when Workers is 1 and no other
+// call overlaps it.
 type SPSA struct {
 	dim   int
 	q     int
 	one   bool
+	m     int
 	sizes Sizes
-	k     int
-	x     []float64
-	c     float64
-	delta []float64 // q·dim entries ±1, perturbation r at [r·dim, (r+1)·dim)
-	dsrc  rand.PCG
-	ev    *evaluator
+	step  atomic.Int64
+	pool  evalPool
 }
 
 // NewSPSA returns the simultaneous-perturbation gradient of f in dimension
@@ -232,69 +270,97 @@ func NewSPSA(f Value, dim int, s SPSASettings) (*SPSA, error) {
 		return nil, fmt.Errorf("%w: CommonRandomNumbers needs the pair of the two-measurement form; OneMeasurement takes one measurement per perturbation", ErrSettings)
 	}
 	q := max(1, s.Perturbations)
-	g := &SPSA{dim: dim, q: q, one: s.OneMeasurement, sizes: s.Sizes, delta: make([]float64, q*dim)}
 	m := 2 * q
-	if g.one {
+	if s.OneMeasurement {
 		m = q
 	}
-	g.ev = newEvaluator(f, dim, m, s.Workers, s.CommonRandomNumbers)
-	g.ev.point = g.point
+	if err := checkMemory("dimension (times Perturbations)", dim, float64(q)*float64(dim)+float64(m)+float64(max(1, min(s.Workers, m)))*float64(dim)); err != nil {
+		return nil, err
+	}
+	g := &SPSA{dim: dim, q: q, one: s.OneMeasurement, m: m, sizes: s.Sizes}
+	workers, crn := s.Workers, s.CommonRandomNumbers
+	point := spsaPoint
+	if g.one {
+		point = spsaPointOne
+	}
+	g.pool.mk = func() *evaluator {
+		e := newEvaluator(f, dim, m, workers, crn)
+		e.point = point
+		e.delta = make([]float64, q*dim)
+		return e
+	}
+	g.pool.free = []*evaluator{g.pool.mk()}
 	return g, nil
 }
 
-// point writes x + c·Δ_r (even j or one-measurement) or x − c·Δ_r.
-func (g *SPSA) point(dst []float64, j int) {
-	r, c := j>>1, g.c
-	if g.one {
-		r = j
-	} else if j&1 == 1 {
+// spsaPoint writes x + c·Δ_r (even j) or x − c·Δ_r (odd j), r = j/2.
+func spsaPoint(e *evaluator, dst []float64, j int) {
+	c := e.c
+	if j&1 == 1 {
 		c = -c
 	}
-	d := g.delta[r*g.dim : (r+1)*g.dim]
-	x := g.x[:len(d)]
+	spsaAt(e, dst, j>>1, c)
+}
+
+// spsaPointOne writes x + c·Δ_j (one-measurement form).
+func spsaPointOne(e *evaluator, dst []float64, j int) { spsaAt(e, dst, j, e.c) }
+
+func spsaAt(e *evaluator, dst []float64, r int, c float64) {
+	dim := len(dst)
+	d := e.delta[r*dim : (r+1)*dim]
+	x := e.x[:len(d)]
 	dst = dst[:len(d)]
 	for i, di := range d {
 		dst[i] = x[i] + c*di
 	}
 }
 
-func (g *SPSA) describe(j int) string {
-	if g.one {
-		return fmt.Sprintf("SPSA measurement %d of %d, at x + c_%d·Δ of perturbation %d", j+1, g.q, g.k, j+1)
+func spsaDescribe(e *evaluator, j int) string {
+	q := len(e.delta) / len(e.x)
+	if e.m == q {
+		return fmt.Sprintf("SPSA measurement %d of %d, at x + c_%d·Δ of perturbation %d", j+1, q, e.k, j+1)
 	}
 	sign := "+"
 	if j&1 == 1 {
 		sign = "−"
 	}
-	return fmt.Sprintf("SPSA measurement %d of %d, at x %s c_%d·Δ of perturbation %d", j+1, 2*g.q, sign, g.k, j>>1+1)
+	return fmt.Sprintf("SPSA measurement %d of %d, at x %s c_%d·Δ of perturbation %d", j+1, e.m, sign, e.k, j>>1+1)
 }
 
-// Measure writes the simultaneous-perturbation gradient at x into dst,
-// using c_k of the step set by SetStep. It draws one number from rng; the
+// Measure is MeasureContext with context.Background() and the step set by
+// SetStep (0 if it was never called).
+func (g *SPSA) Measure(dst, x []float64, rng *rand.Rand) error {
+	return g.MeasureContext(context.Background(), int(g.step.Load()), dst, x, rng)
+}
+
+// MeasureContext writes the simultaneous-perturbation gradient at x into
+// dst, using c_k of step k. A Value that implements [ContextValue]
+// receives ctx; once ctx is done no further measurement of the step starts
+// and the error wraps the context's. It draws one number from rng; the
 // perturbations Δ and every measurement get their own streams derived from
 // it, so the j-th perturbation of a step does not depend on q or on the
 // worker count. On error dst is left unchanged; the error names the
 // failing measurement and wraps [ErrDimension], [ErrSize], [ErrNotFinite],
 // [ErrPanic] or the Value's own error. When several measurements fail, the
 // lowest-numbered one is reported, whatever the worker count.
-func (g *SPSA) Measure(dst, x []float64, rng *rand.Rand) error {
+func (g *SPSA) MeasureContext(ctx context.Context, k int, dst, x []float64, rng *rand.Rand) error {
 	if len(x) != g.dim || len(dst) != g.dim {
 		return fmt.Errorf("%w: SPSA of dimension %d given x of length %d and dst of length %d", ErrDimension, g.dim, len(x), len(dst))
 	}
-	c, err := size(g.sizes, g.k)
+	c, err := size(g.sizes, k)
 	if err != nil {
 		return err
 	}
+	e := g.pool.get(ctx)
+	defer g.pool.put(e)
 	base := rng.Uint64()
-	g.dsrc.Seed(seedPair(base, streamDelta))
-	fillSigns(g.delta, &g.dsrc)
-	g.x, g.c = x, c
-	err = g.ev.run(base, g.describe)
-	g.x = nil
-	if err != nil {
+	e.dsrc.Seed(seedPair(base, streamDelta))
+	fillSigns(e.delta, &e.dsrc)
+	e.x, e.c, e.k = x, c, k
+	if err := e.run(base, spsaDescribe); err != nil {
 		return err
 	}
-	v, p := g.ev.vals, g.dim
+	v, p := e.vals, g.dim
 	for i := range dst {
 		dst[i] = 0
 	}
@@ -306,7 +372,7 @@ func (g *SPSA) Measure(dst, x []float64, rng *rand.Rand) error {
 		} else {
 			w = (v[2*r] - v[2*r+1]) / (2 * c * float64(g.q))
 		}
-		floats.AddScaled(dst, w, g.delta[r*p:(r+1)*p])
+		floats.AddScaled(dst, w, e.delta[r*p:(r+1)*p])
 	}
 	return nil
 }
@@ -323,21 +389,26 @@ func fillSigns(d []float64, src *rand.PCG) {
 	}
 }
 
-// SetStep sets the step index k used for c_k by the next Measure.
-func (g *SPSA) SetStep(k int) { g.k = k }
+// SetStep sets the step index k used for c_k by later calls of Measure
+// (not MeasureContext, which is given k).
+func (g *SPSA) SetStep(k int) { g.step.Store(int64(k)) }
 
 // Dim returns the dimension p.
 func (g *SPSA) Dim() int { return g.dim }
 
 // MeasurementsPerCall returns 2q, or q for the one-measurement form.
-func (g *SPSA) MeasurementsPerCall() int { return g.ev.m }
+func (g *SPSA) MeasurementsPerCall() int { return g.m }
 
 // PilotGradientSize estimates the typical magnitude of a gradient estimate
 // at x0, for choosing the gain scale (see schedule.SpallGains): it takes
 // reps two-measurement SPSA estimates with the fixed perturbation size c
 // and returns the mean of |ĝ_i| over all coordinates and repetitions. It
-// uses 2·reps measurements, serially, with streams derived from rng.
+// uses 2·reps measurements, serially, with streams derived from rng. A nil
+// rng or f is an error wrapping ErrSettings.
 func PilotGradientSize(f Value, x0 []float64, c float64, reps int, rng *rand.Rand) (float64, error) {
+	if rng == nil {
+		return 0, fmt.Errorf("%w: PilotGradientSize given a nil rng", ErrSettings)
+	}
 	if reps < 1 {
 		return 0, fmt.Errorf("%w: PilotGradientSize needs reps ≥ 1, got %d", ErrSettings, reps)
 	}
@@ -366,12 +437,14 @@ type fixedSize float64
 func (c fixedSize) Size(int) float64 { return float64(c) }
 
 var (
-	_ Gradient    = (*KieferWolfowitz)(nil)
-	_ StepAware   = (*KieferWolfowitz)(nil)
-	_ Dimensioned = (*KieferWolfowitz)(nil)
-	_ Counted     = (*KieferWolfowitz)(nil)
-	_ Gradient    = (*SPSA)(nil)
-	_ StepAware   = (*SPSA)(nil)
-	_ Dimensioned = (*SPSA)(nil)
-	_ Counted     = (*SPSA)(nil)
+	_ ContextField = (*KieferWolfowitz)(nil)
+	_ ContextField = (*SPSA)(nil)
+	_ Gradient     = (*KieferWolfowitz)(nil)
+	_ StepAware    = (*KieferWolfowitz)(nil)
+	_ Dimensioned  = (*KieferWolfowitz)(nil)
+	_ Counted      = (*KieferWolfowitz)(nil)
+	_ Gradient     = (*SPSA)(nil)
+	_ StepAware    = (*SPSA)(nil)
+	_ Dimensioned  = (*SPSA)(nil)
+	_ Counted      = (*SPSA)(nil)
 )

@@ -1,6 +1,7 @@
 package oracle
 
 import (
+	"context"
 	"errors"
 	"fmt"
 	"math/rand/v2"
@@ -22,16 +23,53 @@ type Value interface {
 // ValueFunc adapts a function to a Value.
 type ValueFunc func(x []float64, rng *rand.Rand) (float64, error)
 
-// Value calls f(x, rng).
-func (f ValueFunc) Value(x []float64, rng *rand.Rand) (float64, error) { return f(x, rng) }
+// Value calls f(x, rng). A nil ValueFunc returns an error wrapping
+// ErrSettings.
+func (f ValueFunc) Value(x []float64, rng *rand.Rand) (float64, error) {
+	if f == nil {
+		return 0, errNilFunc("ValueFunc")
+	}
+	return f(x, rng)
+}
+
+// ContextValue is a [Value] that can be cancelled: ValueContext is Value
+// with the context of the run that asked for it. [KieferWolfowitz] and
+// [SPSA] call it, when the Value implements it, with the context handed to
+// their MeasureContext; a value that may block should return ctx's error
+// promptly once ctx is done.
+type ContextValue interface {
+	ValueContext(ctx context.Context, x []float64, rng *rand.Rand) (float64, error)
+}
+
+// ContextValueFunc adapts a context-aware function to a [ContextValue]
+// that is also a [Value].
+type ContextValueFunc func(ctx context.Context, x []float64, rng *rand.Rand) (float64, error)
+
+// ValueContext calls f(ctx, x, rng). A nil ContextValueFunc returns an
+// error wrapping ErrSettings.
+func (f ContextValueFunc) ValueContext(ctx context.Context, x []float64, rng *rand.Rand) (float64, error) {
+	if f == nil {
+		return 0, errNilFunc("ContextValueFunc")
+	}
+	return f(ctx, x, rng)
+}
+
+// Value calls f with context.Background().
+func (f ContextValueFunc) Value(x []float64, rng *rand.Rand) (float64, error) {
+	return f.ValueContext(context.Background(), x, rng)
+}
 
 // StepAware is implemented by oracles whose measurement depends on the step
 // index k of the run, such as the perturbation size c_k of a
-// finite-difference or simultaneous-perturbation gradient. The pull drivers
-// of package sa call SetStep(k) before every call of Measure, with k the
-// number of updates applied so far (k counts from 0, like the gain index of
-// a non-adaptive schedule). Code that calls Measure directly must call
-// SetStep itself; without it the oracle measures as at step 0.
+// finite-difference or simultaneous-perturbation gradient. For an oracle
+// that does not implement [ContextField], the pull drivers of package sa
+// call SetStep(k) before every call of Measure, with k the number of
+// updates applied so far (k counts from 0, like the gain index of a
+// non-adaptive schedule). Code that calls Measure directly must call
+// SetStep itself; without it the oracle measures as at step 0. SetStep
+// followed by Measure is a two-call protocol and cannot serve two runs at
+// once; oracles meant to be shared implement ContextField, which carries k
+// with the call.
 type StepAware interface {
 	SetStep(k int)
 }
@@ -60,11 +98,14 @@ var (
 	// ErrPanic is wrapped by the [*PanicError] of a measurement that
 	// panicked.
 	ErrPanic = errors.New("oracle: measurement panicked")
+	// ErrBusy reports a [MiniBatch] used by two runs (or two goroutines)
+	// at once.
+	ErrBusy = errors.New("oracle: batch oracle is in use by another run")
 )
 
 // PanicError is the error of a measurement that panicked. The adapters
-// recover a panic of Value, on the calling goroutine and on worker
-// goroutines alike, and return it as this error, so that a faulty
+// recover a panic of Value (and [MiniBatch] one of AddGradient), on the
+// calling goroutine and on worker goroutines alike, and return it as this error, so that a faulty
 // simulation cannot take the whole process down from a goroutine the
 // caller does not own, and the run still returns its last iterate. Value
 // is what the measurement panicked with; Stack is the stack of the
@@ -80,16 +121,22 @@ func (e *PanicError) Error() string { return fmt.Sprintf("%v: %v", ErrPanic, e.V
 // Unwrap returns ErrPanic.
 func (e *PanicError) Unwrap() error { return ErrPanic }
 
-// measureOne calls f.Value and turns a panic into a *PanicError.
-func measureOne(f Value, x []float64, rng *rand.Rand) (v float64, err error) {
+// measureOne calls f.ValueContext (if f is a ContextValue) or f.Value and
+// turns a panic into a *PanicError.
+func measureOne(ctx context.Context, f Value, x []float64, rng *rand.Rand) (v float64, err error) {
 	defer func() {
 		if p := recover(); p != nil {
 			v, err = 0, &PanicError{Value: p, Stack: debug.Stack()}
 		}
 	}()
+	if cf, ok := f.(ContextValue); ok {
+		return cf.ValueContext(ctx, x, rng)
+	}
 	return f.Value(x, rng)
 }
 
 var (
-	_ Value = ValueFunc(nil)
+	_ Value        = ValueFunc(nil)
+	_ Value        = ContextValueFunc(nil)
+	_ ContextValue = ContextValueFunc(nil)
 )

@@ -61,12 +61,25 @@
 // multiply–add may change the last bits across architectures). [Replicate]
 // gives the same answer whatever the number of workers.
 //
+// # Cancellation
+//
+// Every driver checks its context before each step and hands it to every
+// measurement of an oracle that implements oracle.ContextField (and the
+// gradient-free adapters pass it on to an oracle.ContextValue), so a
+// cancelled run abandons a blocking measurement as soon as the oracle
+// returns; an oracle without it finishes its measurement first.
+//
 // # Concurrency
 //
 // A driver call runs on the calling goroutine. [Replicate] calls its
 // RunFunc from several goroutines. Oracles, schedules and projections may
 // be shared between concurrent runs only if they are safe for concurrent
-// use; those of this module are. A [Tuner] is safe for concurrent use:
+// use. Of this module's, the schedules, projections, function adapters and
+// the gradient-free adapters oracle.KieferWolfowitz and oracle.SPSA are
+// (the drivers call them with the step index, never through SetStep); an
+// oracle.MiniBatch is not, since its sampler's position belongs to one
+// run: [MinimizeSum] holds it for the whole run, and a second run on the
+// same MiniBatch fails with oracle.ErrBusy. A [Tuner] is safe for concurrent use:
 // reads of the parameter take no lock and allocate nothing, reports
 // serialise on one short critical section (see Tuner).
 //

@@ -44,8 +44,9 @@ const streamSample uint64 = 0x5eed_0301
 // The run starts with g.Reset(), so the same seed, settings, x0 and data
 // give the same Result bit for bit, whatever the number of workers of g.
 // The sampler draws from rand.NewPCG(s.Seed, streamSample). x0 is copied
-// and never modified. g must not be used by another goroutine during the
-// run.
+// and never modified. g is held for the whole run (oracle.MiniBatch.Claim):
+// a second run started on the same g meanwhile fails at once with an error
+// wrapping oracle.ErrBusy. Give each concurrent run its own MiniBatch.
 func MinimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Settings) (Result, error) {
 	r := Result{X: append([]float64(nil), x0...), Seed: s.Seed, Settings: s}
 	if g == nil {
@@ -75,6 +76,10 @@ func MinimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Setti
 			lim.epochMeasurements = rs.MaxEpochs * n
 		}
 	}
+	if err := g.Claim(); err != nil {
+		return r, err
+	}
+	defer g.Release()
 	g.Reset()
 	c := newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs)
 	rng := rand.New(rand.NewPCG(rs.Seed, streamSample))

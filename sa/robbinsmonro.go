@@ -40,10 +40,15 @@ const (
 // x0 is copied and never modified. The oracle receives the stream
 // rand.NewPCG(s.Seed, streamMeasure) and must not modify or retain x.
 //
-// An oracle that implements oracle.StepAware is told the step index k
-// (the number of updates applied so far) before every measurement; the
-// gradient-free adapters oracle.KieferWolfowitz and oracle.SPSA use it for
-// their perturbation size c_k, so that
+// Every measurement is taken with oracle.MeasureStep: an oracle that
+// implements oracle.ContextField receives ctx and the step index k (the
+// number of updates applied so far), so that a cancelled run abandons a
+// blocking measurement as soon as the oracle returns ctx's error (the run
+// then ends with Reason Cancelled); an oracle that only implements
+// oracle.StepAware is told k with SetStep. An oracle that ignores ctx is
+// not interrupted: cancellation then takes effect before the next step.
+// The gradient-free adapters oracle.KieferWolfowitz and oracle.SPSA use k
+// for their perturbation size c_k, so that
 //
 //	g, _ := oracle.NewSPSA(f, p, oracle.SPSASettings{Sizes: c})
 //	res, err := sa.RobbinsMonro(ctx, g, x0, s)
@@ -94,9 +99,9 @@ func NewSolver(h oracle.Field, x0 []float64, s Settings) (*Solver, error) {
 	if rs.MaxEpochs != 0 {
 		return sv, settingsErr("Settings.MaxEpochs = %d: RobbinsMonro has no data set to count passes over; use MaxSteps or MaxMeasurements", rs.MaxEpochs)
 	}
-	sv.perCall = 1
-	if c, ok := h.(oracle.Counted); ok {
-		sv.perCall = c.MeasurementsPerCall()
+	sv.perCall, err = perCall(h)
+	if err != nil {
+		return sv, err
 	}
 	sv.h = h
 	sv.c = newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs)
@@ -127,10 +132,7 @@ func (sv *Solver) Step() error {
 	if sv.c == nil {
 		return fmt.Errorf("%w: the solver was not constructed successfully", ErrSettings)
 	}
-	if st, ok := sv.h.(oracle.StepAware); ok {
-		st.SetStep(sv.c.steps)
-	}
-	err := sv.h.Measure(sv.y, sv.c.x, sv.rng)
+	err := oracle.MeasureStep(context.Background(), sv.h, sv.c.steps, sv.y, sv.c.x, sv.rng)
 	sv.r.Measurements += sv.perCall
 	if err != nil {
 		return &StepError{Step: sv.c.steps, Err: fmt.Errorf("measurement: %w", err)}
@@ -175,6 +177,21 @@ func checkStart(h oracle.Field, x0 []float64) error {
 	return nil
 }
 
+// perCall returns the measurements one call of h uses: 1, or what an
+// oracle.Counted reports, which must be ≥ 1 (0 or fewer would make every
+// measurement budget unreachable, or the count negative).
+func perCall(h oracle.Field) (int, error) {
+	c, ok := h.(oracle.Counted)
+	if !ok {
+		return 1, nil
+	}
+	n := c.MeasurementsPerCall()
+	if n < 1 {
+		return 0, settingsErr("the oracle (%T) reports %d measurements per call (oracle.Counted): must be ≥ 1", h, n)
+	}
+	return n, nil
+}
+
 // checkStops rejects resolved settings under which a pull run could never
 // stop: no step, measurement or epoch budget and a context that is never
 // cancelled.
@@ -205,7 +222,6 @@ func runPullWith(ctx context.Context, c *core, h oracle.Field, y []float64, rng 
 	c.configure(r.Settings, perCall)
 	maxEpochMeas := lim.epochMeasurements
 	done := ctx.Done()
-	stepper, _ := h.(oracle.StepAware)
 	for {
 		if maxSteps != NoLimit && c.steps >= maxSteps {
 			r.Reason = StepLimit
@@ -227,12 +243,16 @@ func runPullWith(ctx context.Context, c *core, h oracle.Field, y []float64, rng 
 			default:
 			}
 		}
-		if stepper != nil {
-			stepper.SetStep(c.steps)
-		}
-		err := h.Measure(y, c.x, rng)
+		err := oracle.MeasureStep(ctx, h, c.steps, y, c.x, rng)
 		r.Measurements += perCall
 		if err != nil {
+			if ctx.Err() != nil {
+				// The measurement gave up because the run was
+				// cancelled (a context-aware oracle): a cancellation,
+				// not a failure of the oracle.
+				r.Reason = Cancelled
+				return fmt.Errorf("sa: stopped during step %d: %w (measurement: %w)", c.steps, context.Cause(ctx), err)
+			}
 			r.Reason = Failed
 			return &StepError{Step: c.steps, Err: fmt.Errorf("measurement: %w", err)}
 		}
