@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math/rand/v2"
+	"reflect"
 	"runtime"
 	"runtime/debug"
 	"sync"
@@ -172,11 +173,11 @@ func (p *workerPool) stop() { p.once.Do(func() { close(p.wake) }) }
 // within a pass, so it needs 1 ≤ size ≤ n. The MiniBatch owns s from now
 // on: it calls s.Fill with the stream it is given and s.Reset on Reset.
 func NewMiniBatch(f FiniteSum, s sampling.Sampler, size int, bs BatchSettings) (*MiniBatch, error) {
-	if f == nil {
-		return nil, fmt.Errorf("%w: finite sum is nil", ErrSettings)
+	if isNil(f) {
+		return nil, fmt.Errorf("%w: finite sum is nil (%T)", ErrSettings, f)
 	}
-	if s == nil {
-		return nil, fmt.Errorf("%w: sampler is nil (use NewFullBatch for every sample)", ErrSettings)
+	if isNil(s) {
+		return nil, fmt.Errorf("%w: sampler is nil (%T; use NewFullBatch for every sample)", ErrSettings, s)
 	}
 	n := f.Len()
 	if err := checkSum(f); err != nil {
@@ -208,13 +209,27 @@ func NewMiniBatch(f FiniteSum, s sampling.Sampler, size int, bs BatchSettings) (
 // matrix–vector products from gonum's BLAS, the same sum in another
 // rounding order, and faster than one sample at a time.
 func NewFullBatch(f FiniteSum, bs BatchSettings) (*MiniBatch, error) {
-	if f == nil {
-		return nil, fmt.Errorf("%w: finite sum is nil", ErrSettings)
+	if isNil(f) {
+		return nil, fmt.Errorf("%w: finite sum is nil (%T)", ErrSettings, f)
 	}
 	if err := checkSum(f); err != nil {
 		return nil, err
 	}
 	return newBatch(f, f.Len(), bs)
+}
+
+// isNil reports whether v is nil or an interface holding a nil pointer,
+// map, slice, channel or function (a typed nil, such as a nil
+// *sampling.Shuffled), which would otherwise panic far from the cause.
+func isNil(v any) bool {
+	if v == nil {
+		return true
+	}
+	switch r := reflect.ValueOf(v); r.Kind() {
+	case reflect.Pointer, reflect.Map, reflect.Slice, reflect.Chan, reflect.Func, reflect.Interface:
+		return r.IsNil()
+	}
+	return false
 }
 
 func checkSum(f FiniteSum) error {

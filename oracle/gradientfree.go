@@ -98,11 +98,11 @@ func checkMemory(field string, value int, floats float64) error {
 
 func checkCommon(f Value, dim int, sizes Sizes, workers int) error {
 	switch {
-	case f == nil:
-		return fmt.Errorf("%w: the Value is nil", ErrSettings)
+	case isNil(f):
+		return fmt.Errorf("%w: the Value is nil (%T)", ErrSettings, f)
 	case dim < 1:
 		return fmt.Errorf("%w: dimension %d: must be ≥ 1", ErrSettings, dim)
-	case sizes == nil:
+	case isNil(sizes):
 		return fmt.Errorf("%w: Sizes is nil: a perturbation size sequence is required, for example schedule.PowerSizes{Scale: c, Exponent: 0.101}", ErrSettings)
 	case workers < 0:
 		return fmt.Errorf("%w: Workers = %d: must be ≥ 0", ErrSettings, workers)

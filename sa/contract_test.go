@@ -17,6 +17,7 @@ import (
 
 	"github.com/stochroot/stochroot/oracle"
 	"github.com/stochroot/stochroot/sa"
+	"github.com/stochroot/stochroot/sampling"
 	"github.com/stochroot/stochroot/schedule"
 )
 
@@ -366,5 +367,18 @@ func TestContractStartingPointRule(t *testing.T) {
 				t.Errorf("MinimizeSum from %v = %v, want %v", tc.x0, err, tc.want)
 			}
 		})
+	}
+}
+
+func TestContractTypedNilArguments(t *testing.T) {
+	model := &blockingSum{n: 4, d: 1, panicAt: -1}
+	if _, err := oracle.NewMiniBatch(model, (*sampling.Shuffled)(nil), 2, oracle.BatchSettings{}); !errors.Is(err, oracle.ErrSettings) {
+		t.Errorf("NewMiniBatch(typed-nil sampler) = %v, want ErrSettings", err)
+	}
+	if _, err := oracle.NewFullBatch((*blockingSum)(nil), oracle.BatchSettings{}); !errors.Is(err, oracle.ErrSettings) {
+		t.Errorf("NewFullBatch(typed-nil sum) = %v, want ErrSettings", err)
+	}
+	if _, err := oracle.NewSPSA(oracle.ValueFunc(nil), 2, oracle.SPSASettings{Sizes: schedule.PowerSizes{Scale: 0.1, Exponent: 0.101}}); !errors.Is(err, oracle.ErrSettings) {
+		t.Errorf("NewSPSA(ValueFunc(nil)) = %v, want ErrSettings", err)
 	}
 }
