@@ -165,6 +165,11 @@ func (g *KieferWolfowitz) MeasureContext(ctx context.Context, k int, dst, x []fl
 	v := e.vals
 	inv := 1 / (2 * c)
 	for i := range dst {
+		if q := (v[2*i] - v[2*i+1]) * inv; math.IsNaN(q) || math.IsInf(q, 0) {
+			return fmt.Errorf("%w: Kiefer–Wolfowitz gradient entry %d = %v: the difference divided by 2·c_%d = %v overflowed", ErrNotFinite, i, q, k, 2*c)
+		}
+	}
+	for i := range dst {
 		dst[i] = (v[2*i] - v[2*i+1]) * inv
 	}
 	return nil
@@ -180,12 +185,31 @@ func (g *KieferWolfowitz) Dim() int { return g.dim }
 // MeasurementsPerCall returns 2p.
 func (g *KieferWolfowitz) MeasurementsPerCall() int { return 2 * g.dim }
 
+// size returns c_k, checked: a finite value > 0 whose reciprocal 1/(2c_k)
+// (the scale of every difference quotient) is finite too; a c_k so small
+// that it overflows (below about 2.8e-309) would turn any difference into
+// ±Inf or NaN.
 func size(s Sizes, k int) (float64, error) {
 	c := s.Size(k)
 	if !(c > 0) || math.IsInf(c, 1) {
 		return 0, fmt.Errorf("%w: c_%d = %v", ErrSize, k, c)
 	}
+	if math.IsInf(1/(2*c), 0) {
+		return 0, fmt.Errorf("%w: c_%d = %v is so small that 1/(2·c_%d) overflows", ErrSize, k, c, k)
+	}
 	return c, nil
+}
+
+// checkQuotients reports a non-finite entry of an SPSA gradient estimate:
+// the measurements were finite, but a difference divided by a tiny c_k
+// overflowed (dst then holds the overflowed estimate).
+func checkQuotients(method string, dst []float64, k int, c float64) error {
+	for i, v := range dst {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return fmt.Errorf("%w: %s gradient entry %d = %v: a difference divided by c_%d = %v overflowed", ErrNotFinite, method, i, v, k, c)
+		}
+	}
+	return nil
 }
 
 // SPSASettings configures an [SPSA] gradient. The zero value of every field
@@ -339,8 +363,10 @@ func (g *SPSA) Measure(dst, x []float64, rng *rand.Rand) error {
 // and the error wraps the context's. It draws one number from rng; the
 // perturbations Δ and every measurement get their own streams derived from
 // it, so the j-th perturbation of a step does not depend on q or on the
-// worker count. On error dst is left unchanged; the error names the
-// failing measurement and wraps [ErrDimension], [ErrSize], [ErrNotFinite],
+// worker count. On error dst is left unchanged (except when the measured
+// values were finite but their quotients overflowed, ErrNotFinite, after
+// which dst holds the overflowed estimate); the error names the failing
+// measurement and wraps [ErrDimension], [ErrSize], [ErrNotFinite],
 // [ErrPanic] or the Value's own error. When several measurements fail, the
 // lowest-numbered one is reported, whatever the worker count.
 func (g *SPSA) MeasureContext(ctx context.Context, k int, dst, x []float64, rng *rand.Rand) error {
@@ -374,7 +400,7 @@ func (g *SPSA) MeasureContext(ctx context.Context, k int, dst, x []float64, rng 
 		}
 		floats.AddScaled(dst, w, e.delta[r*p:(r+1)*p])
 	}
-	return nil
+	return checkQuotients("SPSA", dst, k, c)
 }
 
 // fillSigns fills d with independent symmetric ±1 values, one bit of src
