@@ -28,7 +28,8 @@ func (m Dense) Rows() int {
 
 // DenseFromRows copies rows (one slice per sample) into a new Dense. It
 // returns an error wrapping [ErrData] when there are no rows, a row is
-// empty, or the rows have unequal lengths.
+// empty, the rows have unequal lengths, or a value is NaN or ±Inf. The
+// rows are only read.
 func DenseFromRows(rows [][]float64) (Dense, error) {
 	if len(rows) == 0 {
 		return Dense{}, fmt.Errorf("%w: no rows", ErrData)
@@ -37,11 +38,18 @@ func DenseFromRows(rows [][]float64) (Dense, error) {
 	if c == 0 {
 		return Dense{}, fmt.Errorf("%w: row 0 is empty", ErrData)
 	}
-	data := make([]float64, 0, len(rows)*c)
 	for i, r := range rows {
 		if len(r) != c {
 			return Dense{}, fmt.Errorf("%w: row %d has %d values, row 0 has %d", ErrData, i, len(r), c)
 		}
+		for j, v := range r {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return Dense{}, fmt.Errorf("%w: value %v in row %d, column %d", ErrData, v, i, j)
+			}
+		}
+	}
+	data := make([]float64, 0, len(rows)*c)
+	for _, r := range rows {
 		data = append(data, r...)
 	}
 	return Dense{Data: data, Cols: c}, nil
