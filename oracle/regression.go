@@ -28,7 +28,8 @@ func (m Dense) Rows() int {
 
 // DenseFromRows copies rows (one slice per sample) into a new Dense. It
 // returns an error wrapping [ErrData] when there are no rows, a row is
-// empty, or the rows have unequal lengths.
+// empty, the rows have unequal lengths, or a value is NaN or ±Inf. The
+// rows are only read.
 func DenseFromRows(rows [][]float64) (Dense, error) {
 	if len(rows) == 0 {
 		return Dense{}, fmt.Errorf("%w: no rows", ErrData)
@@ -37,11 +38,18 @@ func DenseFromRows(rows [][]float64) (Dense, error) {
 	if c == 0 {
 		return Dense{}, fmt.Errorf("%w: row 0 is empty", ErrData)
 	}
-	data := make([]float64, 0, len(rows)*c)
 	for i, r := range rows {
 		if len(r) != c {
 			return Dense{}, fmt.Errorf("%w: row %d has %d values, row 0 has %d", ErrData, i, len(r), c)
 		}
+		for j, v := range r {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return Dense{}, fmt.Errorf("%w: value %v in row %d, column %d", ErrData, v, i, j)
+			}
+		}
+	}
+	data := make([]float64, 0, len(rows)*c)
+	for _, r := range rows {
 		data = append(data, r...)
 	}
 	return Dense{Data: data, Cols: c}, nil
@@ -93,7 +101,13 @@ type RegressionSettings struct {
 	// makes badly scaled data well conditioned for gradient methods. With
 	// NoIntercept the columns are scaled but not centred (m_j = 0, s_j the
 	// root mean square), because a centred model without an intercept is a
-	// different model. The data are copied; a constant column is an error.
+	// different model. The data are copied. The centres and scales are
+	// computed without overflow for any finite data (up to ±MaxFloat64).
+	// It is an error, wrapping [ErrData] and naming the column, when a
+	// column is constant (every value the same; all zero without an
+	// intercept), varies only at the rounding level of its values (spread
+	// below 1e-12 times its mean), or has a spread below the smallest
+	// normal float64, whose reciprocal overflows.
 	// [Regression.ToOriginal] maps the fitted coefficients back to the
 	// units of the caller's data.
 	Standardize bool
@@ -125,7 +139,8 @@ type Regression struct {
 // NewLeastSquares returns the least-squares finite sum of data x and
 // targets y: f(β) = (1/n) Σ ½(z_i − y_i)² (+ penalty). It returns an error
 // wrapping [ErrData] for empty data, a target count that does not match the
-// rows, NaN or ±Inf anywhere, or a constant column under Standardize.
+// rows, NaN or ±Inf anywhere, or, under Standardize, a column that cannot
+// be standardised (see [RegressionSettings]).
 func NewLeastSquares(x Dense, y []float64, s RegressionSettings) (*Regression, error) {
 	return newRegression(SquaredLoss, 0, x, y, s)
 }
@@ -195,41 +210,91 @@ func newRegression(loss Loss, tau float64, x Dense, y []float64, s RegressionSet
 }
 
 // standardize replaces r.a by a standardised copy.
+//
+// Each column is first divided by the power of two at or just below its
+// largest |value| (exact: only the exponent changes), so its sum and its
+// sum of squares
+// cannot overflow however large the values are; the mean and the spread
+// are then computed in these units and scaled back. With divisor n the
+// spread never exceeds the largest |value|, so the scale itself is always
+// representable. Only a spread below the smallest normal float64 cannot
+// serve as a scale (its reciprocal overflows), and that has its own error.
 func (r *Regression) standardize() error {
 	n, p := r.n, r.p
 	mean := make([]float64, p)
 	std := make([]float64, p)
+	unit := make([]float64, p) // the power of two each column is divided by
+	for j := range p {
+		big := 0.0
+		for i := range n {
+			big = math.Max(big, math.Abs(r.a[i*p+j]))
+		}
+		// 2^(e−1) ≤ big < 2^e, and 2^(e−1) ≤ 2^1023 is representable
+		// where 2^e might not be; scaled values lie in (−2, 2).
+		_, e := math.Frexp(big)
+		unit[j] = math.Ldexp(1, e-1)
+	}
 	if r.off == 1 {
 		for i := range n {
-			floats.Add(mean, r.a[i*p:(i+1)*p])
+			for j, v := range r.a[i*p : (i+1)*p] {
+				mean[j] += v / unit[j]
+			}
 		}
 		floats.Scale(1/float64(n), mean)
 	}
 	// Two-pass variance about the mean (accurate for data like NIST's with
-	// a large mean and small spread).
+	// a large mean and small spread), in scaled units.
 	for i := range n {
 		row := r.a[i*p : (i+1)*p]
 		for j, v := range row {
-			dv := v - mean[j]
+			dv := v/unit[j] - mean[j]
 			std[j] += dv * dv
 		}
 	}
-	a := make([]float64, n*p)
 	for j := range p {
 		std[j] = math.Sqrt(std[j] / float64(n))
-		// A column whose spread is at rounding level of its values is
-		// constant for every practical purpose.
-		if !(std[j] > 1e-12*math.Abs(mean[j])) || std[j] == 0 {
-			return fmt.Errorf("%w: column %d is constant (value %v): it cannot be standardised; drop it (the intercept already models a constant)", ErrData, j, r.a[j])
+		if err := r.checkSpread(j, mean[j], std[j], unit[j]); err != nil {
+			return err
 		}
 	}
+	a := make([]float64, n*p)
 	for i := range n {
 		src, dst := r.a[i*p:(i+1)*p], a[i*p:(i+1)*p]
 		for j, v := range src {
-			dst[j] = (v - mean[j]) / std[j]
+			dst[j] = (v/unit[j] - mean[j]) / std[j]
 		}
 	}
+	for j := range p {
+		mean[j] *= unit[j]
+		std[j] *= unit[j]
+	}
 	r.a, r.mean, r.std = a, mean, std
+	return nil
+}
+
+// checkSpread rejects column j, whose mean and spread in units of unit are
+// m and sd, when it cannot be standardised, with a message that says why.
+func (r *Regression) checkSpread(j int, m, sd, unit float64) error {
+	n, p := r.n, r.p
+	constant := true
+	for i := 1; i < n && constant; i++ {
+		constant = r.a[i*p+j] == r.a[j]
+	}
+	switch {
+	case constant && (r.off == 1 || r.a[j] == 0):
+		what := "it cannot be standardised; drop it (the intercept already models a constant)"
+		if r.off == 0 {
+			what = "it cannot be scaled to unit root mean square; drop it"
+		}
+		return fmt.Errorf("%w: column %d is constant (every value is %v): %s", ErrData, j, r.a[j], what)
+	case !(sd > 1e-12*math.Abs(m)):
+		// Not constant, but its spread is at the rounding level of its
+		// values: standardising would blow rounding errors up into the
+		// whole signal.
+		return fmt.Errorf("%w: column %d varies only at rounding level (spread %.3g around mean %.17g, relative %.2g < 1e-12): standardising would amplify rounding errors; drop it or subtract a reference value first", ErrData, j, sd*unit, m*unit, sd/math.Abs(m))
+	case sd*unit < math.SmallestNonzeroFloat64*(1<<52): // below the smallest normal float64
+		return fmt.Errorf("%w: column %d has spread %.3g, which cannot be represented as a usable scale (below the smallest normal float64, %.3g, its reciprocal overflows): rescale the column", ErrData, j, sd*unit, math.SmallestNonzeroFloat64*(1<<52))
+	}
 	return nil
 }
 

@@ -19,6 +19,13 @@
 // # Concurrency
 //
 // A sampler is not safe for concurrent use.
+//
+// # Programmer errors
+//
+// A bad item count given to a constructor, a method called on a nil
+// sampler pointer, and a nil rng given to a Fill that draws randomness are
+// programmer errors: they panic, with a message that says what was wrong,
+// rather than return errors from the batch loop.
 package sampling
 
 import (
@@ -44,6 +51,23 @@ func checkN(n int) {
 	}
 }
 
+// MaxShuffledItems is the largest n [NewShuffled] accepts: its order of n
+// ints then takes at most 8 GiB. Larger counts are refused with a panic
+// that names n and the bytes the order would need, instead of a fatal
+// out-of-memory error in the allocator (which no recover catches); draw
+// with replacement ([Uniform], no memory per item) from larger sets.
+const MaxShuffledItems = 1 << 30
+
+// panicNil is the panic of a method called on a nil sampler pointer.
+func panicNil(typ, method string) {
+	panic(fmt.Sprintf("sampling: %s called on a nil %s (construct it with New%s)", method, typ, typ[len("*sampling."):]))
+}
+
+// panicNilRng is the panic of Fill with a nil rng.
+func panicNilRng(typ string) {
+	panic(fmt.Sprintf("sampling: %s.Fill: rng is nil; pass a *rand.Rand (only Sequential draws no randomness)", typ))
+}
+
 // Uniform draws indices independently and uniformly from [0, n): sampling
 // with replacement, so a batch may repeat an item and miss others.
 type Uniform struct {
@@ -59,7 +83,15 @@ func NewUniform(n int) *Uniform {
 }
 
 // Fill writes len(dst) independent uniform indices into dst.
+//
+// It panics with a message saying which if s or rng is nil.
 func (s *Uniform) Fill(dst []int, rng *rand.Rand) {
+	if s == nil {
+		panicNil("*sampling.Uniform", "Fill")
+	}
+	if rng == nil && len(dst) > 0 {
+		panicNilRng("Uniform")
+	}
 	for i := range dst {
 		dst[i] = rng.IntN(s.n)
 	}
@@ -67,13 +99,28 @@ func (s *Uniform) Fill(dst []int, rng *rand.Rand) {
 }
 
 // Len returns n.
-func (s *Uniform) Len() int { return s.n }
+func (s *Uniform) Len() int {
+	if s == nil {
+		panicNil("*sampling.Uniform", "Len")
+	}
+	return s.n
+}
 
 // Epoch returns the number of draws so far divided by n, rounded down.
-func (s *Uniform) Epoch() int { return s.draws / s.n }
+func (s *Uniform) Epoch() int {
+	if s == nil {
+		panicNil("*sampling.Uniform", "Epoch")
+	}
+	return s.draws / s.n
+}
 
 // Reset sets the draw count to zero.
-func (s *Uniform) Reset() { s.draws = 0 }
+func (s *Uniform) Reset() {
+	if s == nil {
+		panicNil("*sampling.Uniform", "Reset")
+	}
+	s.draws = 0
+}
 
 // Shuffled draws without replacement: it hands out the items in a random
 // order and, when all n have been handed out (one epoch), draws a fresh
@@ -92,17 +139,28 @@ type Shuffled struct {
 }
 
 // NewShuffled returns a without-replacement sampler over n items. It panics
-// if n < 1. It allocates the order of n ints once.
+// if n < 1 or n > [MaxShuffledItems]. It allocates the order of n ints
+// once.
 func NewShuffled(n int) *Shuffled {
 	checkN(n)
+	if n > MaxShuffledItems {
+		panic(fmt.Sprintf("sampling: NewShuffled: number of items n = %d: its order would need %.4g bytes, more than MaxShuffledItems = %d allow (%d bytes); use NewUniform for larger sets", n, 8*float64(n), MaxShuffledItems, 8*MaxShuffledItems))
+	}
 	s := &Shuffled{order: make([]int, n)}
 	s.Reset()
 	return s
 }
 
 // Fill writes the next len(dst) items of the current random order into dst,
-// starting a new epoch with a new order where needed.
+// starting a new epoch with a new order where needed. It panics with a
+// message saying which if s or rng is nil (an empty dst needs no rng).
 func (s *Shuffled) Fill(dst []int, rng *rand.Rand) {
+	if s == nil {
+		panicNil("*sampling.Shuffled", "Fill")
+	}
+	if rng == nil && len(dst) > 0 {
+		panicNilRng("Shuffled")
+	}
 	for i := range dst {
 		if s.fresh || s.pos == len(s.order) {
 			s.shuffle(rng)
@@ -127,14 +185,27 @@ func (s *Shuffled) shuffle(rng *rand.Rand) {
 }
 
 // Len returns n.
-func (s *Shuffled) Len() int { return len(s.order) }
+func (s *Shuffled) Len() int {
+	if s == nil {
+		panicNil("*sampling.Shuffled", "Len")
+	}
+	return len(s.order)
+}
 
 // Epoch returns the number of completed passes.
-func (s *Shuffled) Epoch() int { return s.epoch }
+func (s *Shuffled) Epoch() int {
+	if s == nil {
+		panicNil("*sampling.Shuffled", "Epoch")
+	}
+	return s.epoch
+}
 
 // Reset restores the identity order and position 0 and forgets the epochs;
 // the next Fill starts with a fresh shuffle.
 func (s *Shuffled) Reset() {
+	if s == nil {
+		panicNil("*sampling.Shuffled", "Reset")
+	}
 	for i := range s.order {
 		s.order[i] = i
 	}
@@ -155,8 +226,11 @@ func NewSequential(n int) *Sequential {
 }
 
 // Fill writes the next len(dst) positions, wrapping around after n−1. rng is
-// not used and may be nil.
+// not used and may be nil. It panics with a message saying so if s is nil.
 func (s *Sequential) Fill(dst []int, _ *rand.Rand) {
+	if s == nil {
+		panicNil("*sampling.Sequential", "Fill")
+	}
 	for i := range dst {
 		dst[i] = s.pos
 		s.pos++
@@ -168,13 +242,28 @@ func (s *Sequential) Fill(dst []int, _ *rand.Rand) {
 }
 
 // Len returns n.
-func (s *Sequential) Len() int { return s.n }
+func (s *Sequential) Len() int {
+	if s == nil {
+		panicNil("*sampling.Sequential", "Len")
+	}
+	return s.n
+}
 
 // Epoch returns the number of completed passes.
-func (s *Sequential) Epoch() int { return s.epoch }
+func (s *Sequential) Epoch() int {
+	if s == nil {
+		panicNil("*sampling.Sequential", "Epoch")
+	}
+	return s.epoch
+}
 
 // Reset returns to position 0 and forgets the epochs.
-func (s *Sequential) Reset() { s.pos, s.epoch = 0, 0 }
+func (s *Sequential) Reset() {
+	if s == nil {
+		panicNil("*sampling.Sequential", "Reset")
+	}
+	s.pos, s.epoch = 0, 0
+}
 
 var (
 	_ Sampler = (*Uniform)(nil)

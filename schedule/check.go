@@ -66,12 +66,22 @@ type Checker interface {
 
 // Check returns the verdict on Σa_k = ∞ and Σa_k² < ∞ for s. A schedule that
 // implements [Checker] answers analytically; any other schedule is examined
-// numerically (see [CheckNumeric]).
+// numerically (see [CheckNumeric]). A nil schedule (also a typed nil such
+// as Func(nil)) or one whose Validate fails is undecided, with the reason
+// in Conditions.Reason.
 func Check(s Schedule) Conditions {
+	if isNil(s) {
+		return nilConditions(s)
+	}
 	if c, ok := s.(Checker); ok {
 		return c.Conditions()
 	}
 	return CheckNumeric(s)
+}
+
+// nilConditions is the verdict on a nil schedule: undecided.
+func nilConditions(s Schedule) Conditions {
+	return Conditions{Exponent: math.NaN(), Reason: fmt.Sprintf("the schedule is nil (%T): there is no gain sequence to check", s)}
 }
 
 // pSeries is the verdict for a_k ~ C·k^(−α), C > 0: Σa_k = ∞ iff α ≤ 1 and
@@ -153,9 +163,18 @@ const (
 // the exponent of the last decade. The result is labelled as evidence
 // (Proven is false) and the Reason lists the local exponents it saw.
 //
-// It reports Undecided when a sampled gain is negative, NaN or infinite,
-// and detects gains that reach zero (Σa_k then converges).
+// It reports Undecided when s is nil, its Validate fails, or a sampled
+// gain is negative, NaN or infinite, and detects gains that reach zero
+// (Σa_k then converges).
 func CheckNumeric(s Schedule) Conditions {
+	if isNil(s) {
+		return nilConditions(s)
+	}
+	if v, ok := s.(Validator); ok {
+		if err := v.Validate(); err != nil {
+			return Conditions{Exponent: math.NaN(), Reason: err.Error()}
+		}
+	}
 	n := (lastDecade-firstDecade)*perDecade + 1
 	logk := make([]float64, n)
 	loga := make([]float64, n)

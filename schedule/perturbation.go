@@ -51,8 +51,22 @@ func (p PowerSizes) Validate() error {
 // numerically.
 type SizesFunc func(k int) float64
 
-// Size returns f(k).
-func (f SizesFunc) Size(k int) float64 { return f(k) }
+// Size returns f(k). It panics with a message saying so if f is nil
+// (Validate reports that as an error).
+func (f SizesFunc) Size(k int) float64 {
+	if f == nil {
+		panic("schedule: Size called on a nil schedule.SizesFunc")
+	}
+	return f(k)
+}
+
+// Validate reports an error wrapping [ErrInvalid] if f is nil.
+func (f SizesFunc) Validate() error {
+	if f == nil {
+		return invalid("schedule.SizesFunc is nil: a perturbation-size function is required")
+	}
+	return nil
+}
 
 // Method names the gradient estimate whose joint conditions on the gain a_k
 // and the perturbation sizes c_k are checked. The conditions differ by
@@ -141,8 +155,8 @@ func CheckSPSA(a Schedule, c Sizes) Joint { return checkJoint(SPSA, a, c) }
 
 func checkJoint(m Method, a Schedule, c Sizes) Joint {
 	j := Joint{Method: m, GainExponent: math.NaN(), SizeExponent: math.NaN()}
-	if a == nil || c == nil {
-		j.Reason = "the gain or the sizes are nil"
+	if isNil(a) || isNil(c) {
+		j.Reason = fmt.Sprintf("the gain (%T) or the sizes (%T) are nil", a, c)
 		return j
 	}
 	alpha, aProven, aWhy := gainExponent(a)
@@ -231,6 +245,11 @@ func gainExponent(a Schedule) (alpha float64, proven bool, why string) {
 
 // sizeExponent returns the tail exponent γ of c_k ~ k^(−γ).
 func sizeExponent(c Sizes) (gamma float64, proven bool, why string) {
+	if v, ok := c.(Validator); ok {
+		if err := v.Validate(); err != nil {
+			return math.NaN(), true, err.Error()
+		}
+	}
 	if p, ok := c.(PowerSizes); ok {
 		if err := p.Validate(); err != nil {
 			return math.NaN(), true, err.Error()
@@ -356,4 +375,5 @@ var (
 	_ Sizes     = PowerSizes{}
 	_ Sizes     = SizesFunc(nil)
 	_ Validator = PowerSizes{}
+	_ Validator = SizesFunc(nil)
 )

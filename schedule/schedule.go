@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"reflect"
 
 	"gonum.org/v1/gonum/floats"
 )
@@ -39,6 +40,20 @@ var ErrInvalid = errors.New("schedule: invalid parameter")
 
 func invalid(format string, args ...any) error {
 	return fmt.Errorf("%w: "+format, append([]any{ErrInvalid}, args...)...)
+}
+
+// isNil reports whether v is nil or an interface holding a nil pointer,
+// function, map, slice or channel (a typed nil such as Func(nil)), whose
+// methods would panic far from the cause.
+func isNil(v any) bool {
+	if v == nil {
+		return true
+	}
+	switch r := reflect.ValueOf(v); r.Kind() {
+	case reflect.Pointer, reflect.Func, reflect.Map, reflect.Slice, reflect.Chan, reflect.Interface:
+		return r.IsNil()
+	}
+	return false
 }
 
 // Constant is the constant gain a_k = a. It does not satisfy Σa_k² < ∞, so
@@ -116,8 +131,14 @@ type Kesten struct {
 	Base Schedule
 }
 
-// Gain returns Base.Gain(n) for gain index n.
-func (s Kesten) Gain(n int) float64 { return s.Base.Gain(n) }
+// Gain returns Base.Gain(n) for gain index n. It panics with a message
+// saying so if Base is nil (Validate reports that as an error).
+func (s Kesten) Gain(n int) float64 {
+	if s.Base == nil {
+		panic("schedule: Kesten.Gain: Kesten.Base is nil")
+	}
+	return s.Base.Gain(n)
+}
 
 // Advance reports whether the direction changed: prev is nil (first step) or
 // ⟨y, prev⟩ < 0.
@@ -127,8 +148,8 @@ func (s Kesten) Advance(y, prev []float64) bool {
 
 // Validate checks that Base is set and valid.
 func (s Kesten) Validate() error {
-	if s.Base == nil {
-		return invalid("Kesten.Base is nil")
+	if isNil(s.Base) {
+		return invalid("Kesten.Base is nil (%T)", s.Base)
 	}
 	if v, ok := s.Base.(Validator); ok {
 		return v.Validate()
@@ -140,12 +161,29 @@ func (s Kesten) Validate() error {
 // numerically by [Check].
 type Func func(k int) float64
 
-// Gain returns f(k).
-func (f Func) Gain(k int) float64 { return f(k) }
+// Gain returns f(k). It panics with a message saying so if f is nil
+// (Validate reports that as an error before a run).
+func (f Func) Gain(k int) float64 {
+	if f == nil {
+		panic("schedule: Gain called on a nil schedule.Func")
+	}
+	return f(k)
+}
+
+// Validate reports an error wrapping [ErrInvalid] if f is nil. The values
+// f returns are checked by the update core at every step.
+func (f Func) Validate() error {
+	if f == nil {
+		return invalid("schedule.Func is nil: a gain function is required")
+	}
+	return nil
+}
 
 var (
-	_ Schedule = Constant(1)
-	_ Schedule = Power{}
-	_ Adaptive = Kesten{}
-	_ Schedule = Func(nil)
+	_ Schedule  = Constant(1)
+	_ Schedule  = Power{}
+	_ Adaptive  = Kesten{}
+	_ Schedule  = Func(nil)
+	_ Validator = Func(nil)
+	_ Validator = Kesten{}
 )

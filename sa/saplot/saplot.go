@@ -42,6 +42,15 @@ type Options struct {
 // ErrEmptyTrace reports a nil trace or one without records.
 var ErrEmptyTrace = errors.New("saplot: the trace has no records")
 
+// ErrNothingToShow reports a trace with records of which none can be drawn
+// on the plot's axes: on the log–log axes of [Distance], every distance and
+// half-width 0 (a run that started at the truth and never left it) or not
+// finite.
+var ErrNothingToShow = errors.New("saplot: nothing to show")
+
+// ErrBadTruth reports a truth with a NaN or ±Inf coordinate.
+var ErrBadTruth = errors.New("saplot: the truth is not finite")
+
 func (o Options) size() (vg.Length, vg.Length, error) {
 	w, h := o.Width, o.Height
 	if w == 0 {
@@ -60,8 +69,11 @@ func (o Options) size() (vg.Length, vg.Length, error) {
 // ‖x̄_k − x*‖ to the known truth x* against the measurements used, with the
 // Euclidean norm of the confidence half-widths of the average where they
 // are available (a radius the distance of the average should mostly stay
-// under). It returns an error if the trace is empty, truth has the wrong
-// length, or the file cannot be written.
+// under). A trace of one record draws one marked point per curve. It
+// returns an error if the trace is empty ([ErrEmptyTrace]), truth has the
+// wrong length or a coordinate that is not finite ([ErrBadTruth]), no
+// distance is > 0 ([ErrNothingToShow]: a run that never left the truth),
+// or the file cannot be written.
 func Distance(path string, tr *sa.Trace, truth []float64, o Options) error {
 	if tr == nil || tr.Len() == 0 {
 		return ErrEmptyTrace
@@ -69,26 +81,34 @@ func Distance(path string, tr *sa.Trace, truth []float64, o Options) error {
 	if len(truth) != tr.Dim() {
 		return fmt.Errorf("saplot: truth has length %d, the trace dimension %d", len(truth), tr.Dim())
 	}
+	if err := finiteTruth(truth); err != nil {
+		return err
+	}
 	w, h, err := o.size()
 	if err != nil {
 		return err
 	}
+	// Only values > 0 and finite have a place on log–log axes.
+	drawable := func(v float64) bool { return v > 0 && !math.IsInf(v, 1) }
 	var dx, da, hw plotter.XYs
 	for p := range tr.All() {
 		m := float64(max(p.Measurements, 1))
-		if v := dist(p.X, truth); v > 0 {
+		if v := dist(p.X, truth); drawable(v) {
 			dx = append(dx, plotter.XY{X: m, Y: v})
 		}
 		if p.Average != nil {
-			if v := dist(p.Average, truth); v > 0 {
+			if v := dist(p.Average, truth); drawable(v) {
 				da = append(da, plotter.XY{X: m, Y: v})
 			}
 		}
 		if p.HalfWidth != nil {
-			if v := norm(p.HalfWidth); v > 0 {
+			if v := norm(p.HalfWidth); drawable(v) {
 				hw = append(hw, plotter.XY{X: m, Y: v})
 			}
 		}
+	}
+	if len(dx)+len(da)+len(hw) == 0 {
+		return fmt.Errorf("%w: all %d records of the trace are at distance 0 from the truth (or not finite), and a log–log plot needs values > 0; a run that starts at the truth with noise-free measurements never leaves it", ErrNothingToShow, tr.Len())
 	}
 	pl := plot.New()
 	pl.Title.Text = o.Title
@@ -109,15 +129,18 @@ func Distance(path string, tr *sa.Trace, truth []float64, o Options) error {
 	if err := addLine(pl, hw, fmt.Sprintf("‖%g%% half-widths of the average‖", 100*tr.Level()), 2, true); err != nil {
 		return err
 	}
+	widenLog(&pl.X)
+	widenLog(&pl.Y)
 	return save(pl, w, h, path)
 }
 
 // Estimate writes to path a plot of coordinate i of the iterate and of the
 // average against the measurements used (log scale), with the confidence
 // band of the average where available. If truth is not nil, truth[i] is
-// drawn as a horizontal line. It returns an error if the trace is empty, i
-// is out of range, truth has the wrong length, or the file cannot be
-// written.
+// drawn as a horizontal line. A trace of one record draws one marked point
+// per curve. It returns an error if the trace is empty ([ErrEmptyTrace]), i
+// is out of range, truth has the wrong length or a coordinate that is not
+// finite ([ErrBadTruth]), or the file cannot be written.
 func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) error {
 	if tr == nil || tr.Len() == 0 {
 		return ErrEmptyTrace
@@ -127,6 +150,9 @@ func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) erro
 	}
 	if truth != nil && len(truth) != tr.Dim() {
 		return fmt.Errorf("saplot: truth has length %d, the trace dimension %d", len(truth), tr.Dim())
+	}
+	if err := finiteTruth(truth); err != nil {
+		return err
 	}
 	w, h, err := o.size()
 	if err != nil {
@@ -202,7 +228,19 @@ func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) erro
 		}
 		pl.Y.Min, pl.Y.Max = ymin-pad, ymax+4*pad // room for the legend
 	}
+	widenLog(&pl.X)
 	return save(pl, w, h, path)
+}
+
+// finiteTruth returns an error wrapping ErrBadTruth naming the first
+// coordinate of truth that is NaN or ±Inf.
+func finiteTruth(truth []float64) error {
+	for i, v := range truth {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return fmt.Errorf("%w: truth[%d] = %v", ErrBadTruth, i, v)
+		}
+	}
+	return nil
 }
 
 func save(pl *plot.Plot, w, h vg.Length, path string) error {

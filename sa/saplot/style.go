@@ -8,6 +8,7 @@ import (
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/plotter"
 	"gonum.org/v1/plot/vg"
+	"gonum.org/v1/plot/vg/draw"
 )
 
 // palette holds the line colours (dark, readable on white and in grey).
@@ -47,9 +48,31 @@ func addLine(pl *plot.Plot, xys plotter.XYs, name string, k int, dashed bool) er
 	if dashed {
 		l.Dashes = []vg.Length{vg.Points(5), vg.Points(3)}
 	}
+	if len(xys) == 1 {
+		// A line through one point draws nothing: mark the point.
+		sc, err := plotter.NewScatter(xys)
+		if err != nil {
+			return err
+		}
+		sc.GlyphStyle.Color = palette[k]
+		sc.GlyphStyle.Radius = vg.Points(2.5)
+		sc.GlyphStyle.Shape = draw.CircleGlyph{}
+		pl.Add(l, sc)
+		pl.Legend.Add(name, l, sc)
+		return nil
+	}
 	pl.Add(l)
 	pl.Legend.Add(name, l)
 	return nil
+}
+
+// widenLog gives a log axis whose data collapse to one value (a trace of
+// one record, say) a decade on each side. Left alone, plot would widen it
+// by ±1 at drawing time, to 0 or below, where a log scale panics.
+func widenLog(a *plot.Axis) {
+	if a.Min == a.Max && a.Min > 0 {
+		a.Min, a.Max = a.Min/10, a.Max*10
+	}
 }
 
 // preciseTicks is plot.DefaultTicks with labels written to as many
