@@ -141,6 +141,17 @@ func (c *core) step(y []float64) error {
 			}
 		}
 	}
+	// Ask an adaptive gain about the index before anything is committed:
+	// Advance is the caller's code and may panic, and the step must then
+	// leave the core as it was.
+	advance := c.adapt == nil
+	if c.adapt != nil {
+		var prev []float64
+		if c.hasPrev {
+			prev = c.prev
+		}
+		advance = c.adapt.Advance(y, prev)
+	}
 	// Commit.
 	c.x, c.next = next, x
 	switch {
@@ -155,18 +166,12 @@ func (c *core) step(y []float64) error {
 	c.active = active
 	c.limited = limited
 	c.lastGain = a
+	if advance {
+		c.gainIdx++
+	}
 	if c.adapt != nil {
-		var prev []float64
-		if c.hasPrev {
-			prev = c.prev
-		}
-		if c.adapt.Advance(y, prev) {
-			c.gainIdx++
-		}
 		copy(c.prev, y)
 		c.hasPrev = true
-	} else {
-		c.gainIdx++
 	}
 	c.steps++
 	if c.steps > c.burnIn {

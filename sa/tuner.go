@@ -75,7 +75,9 @@ type TunerSettings struct {
 	// It must be quick (count, copy, hand off to a channel with a default
 	// case) and must not call methods of the tuner other than Param and
 	// Param1. The slices in Update are valid only during the call. Readers
-	// of the parameter never wait for it.
+	// of the parameter never wait for it. If it panics, the change it was
+	// told about stands, the lock is released and the panic reaches the
+	// caller of the method that made the change.
 	OnUpdate func(u Update)
 }
 
@@ -113,8 +115,26 @@ func (s TunerSettings) resolve(d int) (TunerSettings, error) {
 		}
 		s.MaxChange = append([]float64(nil), s.MaxChange...)
 	}
-	if b, ok := s.Projection.(Box); ok {
-		s.Projection = Box{Lower: append([]float64(nil), b.Lower...), Upper: append([]float64(nil), b.Upper...)}
+	// The projections of this package are copied (a pointer to one is
+	// replaced by a copy of its value), so that the caller's slices do not
+	// move the constraint later. A caller's own Projection is kept as given.
+	switch p := s.Projection.(type) {
+	case *Box:
+		if p == nil {
+			return s, settingsErr("TunerSettings.Projection is a nil *Box")
+		}
+		s.Projection = *p
+	case *Ball:
+		if p == nil {
+			return s, settingsErr("TunerSettings.Projection is a nil *Ball")
+		}
+		s.Projection = *p
+	}
+	switch p := s.Projection.(type) {
+	case Box:
+		s.Projection = Box{Lower: append([]float64(nil), p.Lower...), Upper: append([]float64(nil), p.Upper...)}
+	case Ball:
+		s.Projection = Ball{Center: append([]float64(nil), p.Center...), Radius: p.Radius}
 	}
 	if v, ok := s.Projection.(validator); ok {
 		if err := v.validate(d); err != nil {
@@ -281,8 +301,10 @@ type Tuner struct {
 
 // NewTuner returns a tuner that starts at x0 (copied) with version 0. It
 // returns an error wrapping ErrDimension for an empty x0, ErrSettings for
-// invalid settings (naming the field), ErrNotFinite for a non-finite x0 and
-// ErrOutOfBounds when x0 lies outside the projection or beyond MaxAbs.
+// invalid settings (naming the field) or a non-finite x0, and
+// ErrOutOfBounds when x0 lies outside the projection or beyond MaxAbs: the
+// rule for starting points of the pull drivers (RobbinsMonro and the
+// others).
 func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
 	d := len(x0)
 	if d == 0 {
@@ -292,8 +314,8 @@ func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
 	if err != nil {
 		return nil, err
 	}
-	if err := checkPoint(x0, rs); err != nil {
-		return nil, fmt.Errorf("sa: starting point: %w", err)
+	if err := checkInside("x0", x0, rs.Projection, rs.MaxAbs, ErrSettings); err != nil {
+		return nil, err
 	}
 	t := &Tuner{
 		d:      d,
@@ -309,25 +331,6 @@ func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
 	t.vals = make([]atomic.Uint64, ring*t.stride)
 	t.publish()
 	return t, nil
-}
-
-// checkPoint reports whether x is finite and inside the bounds of s.
-func checkPoint(x []float64, s TunerSettings) error {
-	for i, v := range x {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return fmt.Errorf("%w: x[%d] = %v", ErrNotFinite, i, v)
-		}
-		if s.MaxAbs > 0 && math.Abs(v) > s.MaxAbs {
-			return fmt.Errorf("%w: |x[%d]| = %v exceeds MaxAbs = %v", ErrOutOfBounds, i, math.Abs(v), s.MaxAbs)
-		}
-	}
-	if s.Projection != nil {
-		p := append([]float64(nil), x...)
-		if s.Projection.Project(p) {
-			return fmt.Errorf("%w: the projection moves %v to %v", ErrOutOfBounds, x, p)
-		}
-	}
-	return nil
 }
 
 // publish stores the core's iterate as version t.version, which must be
@@ -397,51 +400,51 @@ func (t *Tuner) Param1() (x float64, version uint64) {
 // update itself (Applied, nil; or Rejected with the core's *StepError,
 // e.g. ErrDiverged). Whenever the outcome is not Applied the parameter is
 // unchanged.
+//
+// Panics in the caller's code pass through Report and never leave the
+// tuner locked. A panic in the gain schedule (e.g. a schedule.Func), in
+// the projection or in an adaptive gain's Advance comes before anything
+// changes: the report is not applied and is counted as Failed. A panic in
+// the OnUpdate hook comes after the update: the update stands (published
+// and counted as Applied) and the panic reaches the caller.
 func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 	t.mu.Lock()
+	defer t.mu.Unlock()
 	if t.closed {
 		t.stats.AfterClose++
-		t.mu.Unlock()
 		return Rejected, ErrClosed
 	}
 	if len(y) != t.d {
 		t.stats.Failed++
-		t.mu.Unlock()
 		return Rejected, fmt.Errorf("%w: measurement has length %d, tuner dimension %d", ErrDimension, len(y), t.d)
 	}
 	for i, v := range y {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
 			t.stats.NotFinite++
-			t.mu.Unlock()
 			return Rejected, fmt.Errorf("%w: Y[%d] = %v (version %d)", ErrNotFinite, i, v, version)
 		}
 	}
 	if version > t.version {
-		cur := t.version
 		t.stats.Future++
-		t.mu.Unlock()
-		return Rejected, fmt.Errorf("%w: version %d, current %d", ErrFutureVersion, version, cur)
+		return Rejected, fmt.Errorf("%w: version %d, current %d", ErrFutureVersion, version, t.version)
 	}
 	lag := t.version - version
 	if version < t.barrier || lag > t.maxLag {
 		t.stats.Stale++
-		t.mu.Unlock()
 		return Stale, nil
 	}
 	if t.frozen {
 		t.stats.Frozen++
-		t.mu.Unlock()
 		return Frozen, nil
 	}
 	copy(t.ybuf, y)
 	k := t.c.steps
-	if err := t.c.step(t.ybuf); err != nil {
+	if err := t.step(); err != nil {
 		if errors.Is(err, ErrNotFinite) {
 			t.stats.NotFinite++
 		} else {
 			t.stats.Failed++
 		}
-		t.mu.Unlock()
 		return Rejected, err
 	}
 	t.version++
@@ -453,8 +456,24 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 			X: t.c.x, Y: t.ybuf, Active: t.c.active, Limited: t.c.limited,
 		})
 	}
-	t.mu.Unlock()
 	return Applied, nil
+}
+
+// step applies the update with the measurement in ybuf; mu is held. A
+// panic in the caller's code that the core runs (the gain, the projection,
+// an adaptive gain's Advance) happens before the core commits anything (see
+// core.step), so the report is not applied: it is counted as Failed and
+// the panic goes on to Report's caller, which releases the lock on the way.
+func (t *Tuner) step() (err error) {
+	done := false
+	defer func() {
+		if !done {
+			t.stats.Failed++
+		}
+	}()
+	err = t.c.step(t.ybuf)
+	done = true
+	return err
 }
 
 // Report1 is Report for a one-dimensional tuner with the measurement y.
@@ -468,19 +487,24 @@ func (t *Tuner) Report1(version uint64, y float64) (Outcome, error) {
 // override are dropped as stale: they describe another parameter. The step
 // counter and the gain index continue; a frozen tuner stays frozen, so
 // Freeze followed by Override pins the parameter. x must be finite and
-// inside the bounds (ErrNotFinite, ErrOutOfBounds); it is an error after
-// Close. On error nothing changes.
+// inside the bounds (ErrNotFinite, ErrOutOfBounds, by the same rule as a
+// starting point except that a non-finite value is ErrNotFinite); a wrong
+// length is ErrDimension; it is ErrClosed after Close. On error nothing
+// changes. A panic in the projection (checking x) changes nothing; a panic
+// in the OnUpdate hook comes after the override, which stands.
 func (t *Tuner) Override(x []float64) error {
 	if len(x) != t.d {
 		return fmt.Errorf("%w: override has length %d, tuner dimension %d", ErrDimension, len(x), t.d)
-	}
-	if err := checkPoint(x, t.set); err != nil {
-		return fmt.Errorf("sa: override: %w", err)
 	}
 	t.mu.Lock()
 	defer t.mu.Unlock()
 	if t.closed {
 		return ErrClosed
+	}
+	// Under the lock: the caller's projection is never run concurrently
+	// with itself by the tuner.
+	if err := checkInside("override", x, t.set.Projection, t.set.MaxAbs, ErrNotFinite); err != nil {
+		return err
 	}
 	t.c.override(x)
 	t.version++
@@ -502,15 +526,15 @@ func (t *Tuner) notify(kind UpdateKind) {
 // Resume. The parameter stays readable and Override still works.
 func (t *Tuner) Freeze() {
 	t.mu.Lock()
+	defer t.mu.Unlock()
 	t.frozen = true
-	t.mu.Unlock()
 }
 
 // Resume undoes Freeze.
 func (t *Tuner) Resume() {
 	t.mu.Lock()
+	defer t.mu.Unlock()
 	t.frozen = false
-	t.mu.Unlock()
 }
 
 // IsFrozen reports whether the tuner is frozen.
@@ -526,8 +550,8 @@ func (t *Tuner) IsFrozen() bool {
 // and always returns nil.
 func (t *Tuner) Close() error {
 	t.mu.Lock()
+	defer t.mu.Unlock()
 	t.closed = true
-	t.mu.Unlock()
 	return nil
 }
 
