@@ -15,12 +15,13 @@ import (
 // refused with ErrSnapshotVersion.
 const SnapshotFormat = 1
 
-// MaxSnapshotCount is the largest counter (steps, averaged, gain index,
-// version and each report counter) that Restore accepts: 2⁵³, the range in
-// which every integer is also exact as a float64 in other JSON readers. A
-// tuner reaches it after 9·10¹⁵ reports (104 days at 10⁹ reports a second);
-// a larger value in a snapshot is taken as corrupt, since a step counter
-// near math.MaxInt would overflow on the next updates.
+// MaxSnapshotCount is the largest counter (steps, averaged, gain index and
+// each report counter) that Restore accepts: 2⁵³, the range in which every
+// integer is also exact as a float64 in other JSON readers. A tuner reaches
+// it after 9·10¹⁵ reports (104 days at 10⁹ reports a second); its counters
+// stop there and its updates are refused (see TunerStats), and a larger
+// value in a snapshot is taken as corrupt (a step counter near math.MaxInt
+// would overflow on the next updates).
 const MaxSnapshotCount = 1 << 53
 
 // Limits behind MaxSnapshotBytes. The longest encoding of a float64 that
@@ -137,7 +138,8 @@ func (t *Tuner) snapshot() snapshot {
 // writes, each once, none null, nothing after it. Restore refuses a
 // snapshot that the live tuner could not have reached:
 //   - another dimension, or arrays of another length;
-//   - a counter below 0 or above MaxSnapshotCount; steps other than the
+//   - a counter below 0 or above MaxSnapshotCount (the version, which is
+//     informational, may be any uint64); steps other than the
 //     applied count; averaged > max(0, steps − BurnIn); a gain index other
 //     than steps for a non-adaptive gain, or above steps for an adaptive
 //     one; a previous measurement without an adaptive gain or before any
@@ -178,8 +180,9 @@ func (t *Tuner) Restore(data []byte) error {
 	t.stats = TunerStats{
 		Applied: c.Applied, Stale: c.Stale, Frozen: c.Frozen, NotFinite: c.NotFinite,
 		Future: c.Future, Failed: c.Failed, AfterClose: c.AfterClose,
-		Overrides: c.Overrides, Restores: c.Restores + 1,
+		Overrides: c.Overrides, Restores: c.Restores,
 	}
+	count1(&t.stats.Restores)
 	t.publish()
 	t.notify(RestoreUpdate)
 	return nil
@@ -327,13 +330,18 @@ func (t *Tuner) decodeSnapshot(data []byte) (*snapshot, error) {
 		return nil, fmt.Errorf("%w: %w: snapshot of dimension %d, tuner of dimension %d", ErrSnapshot, ErrDimension, dim, d)
 	}
 	s.Dim = d
-	var n [4]uint64
-	for i, name := range []string{"version", "steps", "averaged", "gain_index"} {
+	// The version is informational (Restore publishes the next version of
+	// this tuner), so any uint64 is accepted.
+	if err := json.Unmarshal(m["version"], &s.Version); err != nil {
+		return nil, snapErr("field \"version\" is not an integer in [0, 2⁶⁴): %v", err)
+	}
+	var n [3]uint64
+	for i, name := range []string{"steps", "averaged", "gain_index"} {
 		if n[i], err = count(m, name); err != nil {
 			return nil, err
 		}
 	}
-	s.Version, s.Steps, s.Averaged, s.GainIndex = n[0], int(n[1]), int(n[2]), int(n[3])
+	s.Steps, s.Averaged, s.GainIndex = int(n[0]), int(n[1]), int(n[2])
 	if s.X, err = numbers(m, "x", d); err != nil {
 		return nil, err
 	}

@@ -199,7 +199,10 @@ type Update struct {
 // TunerStats counts what a tuner did with the reports it received. Every
 // call of Report lands in exactly one of the report counters, so
 // Applied+Stale+Frozen+NotFinite+Future+Failed+AfterClose is the number of
-// reports sent.
+// reports sent. Each counter stops at MaxSnapshotCount (2⁵³, 9·10¹⁵ calls),
+// and Report refuses updates once Steps reaches it (the update would have
+// no gain index that a snapshot can hold), so a tuner's own snapshot always
+// restores.
 type TunerStats struct {
 	Version uint64 // current published version
 	Steps   int    // updates applied by the core (k of the next update)
@@ -214,6 +217,15 @@ type TunerStats struct {
 
 	Overrides uint64 // calls of Override that set the parameter
 	Restores  uint64 // calls of Restore that replaced the state
+}
+
+// count1 adds 1 to a counter of TunerStats unless it has reached
+// MaxSnapshotCount, where it stays: a tuner's counters never leave the range
+// that Restore accepts.
+func count1(c *uint64) {
+	if *c < MaxSnapshotCount {
+		*c++
+	}
 }
 
 // Dropped returns Stale + Frozen.
@@ -411,39 +423,43 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 	t.mu.Lock()
 	defer t.mu.Unlock()
 	if t.closed {
-		t.stats.AfterClose++
+		count1(&t.stats.AfterClose)
 		return Rejected, ErrClosed
 	}
 	if len(y) != t.d {
-		t.stats.Failed++
+		count1(&t.stats.Failed)
 		return Rejected, fmt.Errorf("%w: measurement has length %d, tuner dimension %d", ErrDimension, len(y), t.d)
 	}
 	for i, v := range y {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
-			t.stats.NotFinite++
+			count1(&t.stats.NotFinite)
 			return Rejected, fmt.Errorf("%w: Y[%d] = %v (version %d)", ErrNotFinite, i, v, version)
 		}
 	}
 	if version > t.version {
-		t.stats.Future++
+		count1(&t.stats.Future)
 		return Rejected, fmt.Errorf("%w: version %d, current %d", ErrFutureVersion, version, t.version)
 	}
 	lag := t.version - version
 	if version < t.barrier || lag > t.maxLag {
-		t.stats.Stale++
+		count1(&t.stats.Stale)
 		return Stale, nil
 	}
 	if t.frozen {
-		t.stats.Frozen++
+		count1(&t.stats.Frozen)
 		return Frozen, nil
 	}
-	copy(t.ybuf, y)
 	k := t.c.steps
+	if k >= MaxSnapshotCount {
+		count1(&t.stats.Failed)
+		return Rejected, &StepError{Step: k, Err: fmt.Errorf("%w: the step counter has reached MaxSnapshotCount = 2⁵³, past which no gain is defined; restore a snapshot with fewer steps or build a new tuner", ErrGain)}
+	}
+	copy(t.ybuf, y)
 	if err := t.step(); err != nil {
 		if errors.Is(err, ErrNotFinite) {
-			t.stats.NotFinite++
+			count1(&t.stats.NotFinite)
 		} else {
-			t.stats.Failed++
+			count1(&t.stats.Failed)
 		}
 		return Rejected, err
 	}
@@ -468,7 +484,7 @@ func (t *Tuner) step() (err error) {
 	done := false
 	defer func() {
 		if !done {
-			t.stats.Failed++
+			count1(&t.stats.Failed)
 		}
 	}()
 	err = t.c.step(t.ybuf)
@@ -510,7 +526,7 @@ func (t *Tuner) Override(x []float64) error {
 	t.version++
 	t.barrier = t.version
 	t.publish()
-	t.stats.Overrides++
+	count1(&t.stats.Overrides)
 	t.notify(OverrideUpdate)
 	return nil
 }

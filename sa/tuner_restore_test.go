@@ -134,7 +134,7 @@ func TestTunerRestoreInvariants(t *testing.T) {
 		// Counters near MaxInt: the step counter would overflow.
 		{"steps MaxInt", plain, with("steps", "9223372036854775807", "gain_index", "9223372036854775807", "counts", cnt("applied", "9223372036854775807")), nil},
 		{"steps 2^53+1", plain, with("steps", "9007199254740993", "gain_index", "9007199254740993", "counts", cnt("applied", "9007199254740993")), nil},
-		{"version MaxUint64", plain, with("version", "18446744073709551615"), nil},
+		{"negative version", plain, with("version", "-1"), nil},
 		{"counter MaxUint64", plain, with("counts", cnt("stale", "18446744073709551615")), nil},
 		{"counter 2^53+1", plain, with("counts", cnt("stale", "9007199254740993")), nil},
 		{"negative averaged", plain, with("averaged", "-1"), nil},
@@ -221,8 +221,8 @@ func TestTunerRestoreCapFitsSnapshots(t *testing.T) {
 		if err := json.Unmarshal(tunerSnap(t, tu), &s); err != nil {
 			t.Fatal(err)
 		}
-		s.Version = MaxSnapshotCount
-		s.Counts = snapshotCount{MaxSnapshotCount, MaxSnapshotCount, MaxSnapshotCount, MaxSnapshotCount, MaxSnapshotCount, MaxSnapshotCount, MaxSnapshotCount, MaxSnapshotCount, MaxSnapshotCount - 1}
+		s.Version = math.MaxUint64
+		s.Counts = snapshotCount{MaxSnapshotCount, MaxSnapshotCount, MaxSnapshotCount, MaxSnapshotCount, MaxSnapshotCount, MaxSnapshotCount, MaxSnapshotCount, MaxSnapshotCount, MaxSnapshotCount}
 		s.Counts.Applied = 1
 		data, err := json.MarshalIndent(s, "\t\t\t\t", "\t\t\t\t")
 		if err != nil {
@@ -244,5 +244,38 @@ func TestTunerRestoreCapFitsSnapshots(t *testing.T) {
 	}
 	if MaxSnapshotBytes(math.MaxInt) != math.MaxInt || MaxSnapshotBytes(-1) != MaxSnapshotBytes(0) {
 		t.Errorf("MaxSnapshotBytes does not saturate")
+	}
+}
+
+// TestTunerCountersStayRestorable: near MaxSnapshotCount the live tuner
+// refuses updates and its counters stop, so its own snapshot always
+// restores (a step counter at MaxInt made every later report fail and the
+// snapshot unusable before; defect 7 of issue 9).
+func TestTunerCountersStayRestorable(t *testing.T) {
+	const c = MaxSnapshotCount
+	data := fmt.Sprintf(`{"format":1,"dim":1,"version":3,"x":[1],"average":[1],"averaged":%d,"steps":%d,"gain_index":%d,"active":false,"limited":false,"frozen":false,`+
+		`"counts":{"applied":%d,"stale":%d,"frozen":0,"not_finite":0,"future":0,"failed":%d,"after_close":0,"overrides":0,"restores":%d}}`, c-1, c-1, c-1, c-1, c, c, c)
+	tu := newTestTuner(t, []float64{0}, TunerSettings{Gain: schedule.Constant(0.5), Projection: tunerBox1(-2, 2)})
+	if err := tu.Restore([]byte(data)); err != nil {
+		t.Fatal(err)
+	}
+	_, v := tu.Param1()
+	if out, err := tu.Report1(v, 1); out != Applied || err != nil {
+		t.Fatalf("last step below the cap: %v, %v", out, err)
+	}
+	x, v := tu.Param1()
+	if out, err := tu.Report1(v, 1); out != Rejected || !errors.Is(err, ErrGain) {
+		t.Fatalf("step at the cap: %v, %v; want rejected, ErrGain", out, err)
+	}
+	if out, _ := tu.Report1(0, 1); out != Stale { // version 0 predates the restore
+		t.Fatalf("stale report: %v", out)
+	}
+	st := tu.Stats()
+	if x2, _ := tu.Param1(); x2 != x || st.Steps != c || st.Applied != c || st.Stale != c || st.Failed != c || st.Restores != c {
+		t.Fatalf("x %v → %v, stats %+v", x, x2, st)
+	}
+	other := newTestTuner(t, []float64{0}, TunerSettings{Gain: schedule.Constant(0.5), Projection: tunerBox1(-2, 2)})
+	if err := other.Restore(tunerSnap(t, tu)); err != nil {
+		t.Fatalf("the snapshot of a tuner at the cap does not restore: %v", err)
 	}
 }
