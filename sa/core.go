@@ -82,7 +82,9 @@ func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, 
 
 // step applies one update with measurement y (len(y) == len(x), checked by
 // the callers). On error nothing changes: the iterate, the average, the
-// counters and the gain index stay as they were.
+// counters and the gain index stay as they were; the same holds when the
+// caller's gain, projection or adaptive Advance panics, since all of them
+// run before the commit.
 func (c *core) step(y []float64) error {
 	a := c.gain.Gain(c.gainIdx)
 	if !(a >= 0) || math.IsInf(a, 1) {
