@@ -21,9 +21,11 @@ import (
 func bigSnapshot(t testing.TB, n int, item string) []byte {
 	t.Helper()
 	tu := newTestTuner(t, []float64{1}, TunerSettings{Gain: schedule.Constant(0.1)})
-	good := string(tunerSnap(t, tu))
-	pad := strings.Repeat(item, n/len(item))
-	return []byte(strings.Replace(good, `"x":[`, `"x":[`+pad, 1))
+	good := tunerSnap(t, tu)
+	i := bytes.Index(good, []byte(`"x":[`)) + len(`"x":[`)
+	pad := bytes.Repeat([]byte(item), n/len(item))
+	out := make([]byte, 0, len(good)+len(pad))
+	return append(append(append(out, good[:i]...), pad...), good[i:]...)
 }
 
 // TestTunerRestoreSizeCap checks that an oversized snapshot is refused
