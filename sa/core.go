@@ -82,7 +82,9 @@ func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, 
 
 // step applies one update with measurement y (len(y) == len(x), checked by
 // the callers). On error nothing changes: the iterate, the average, the
-// counters and the gain index stay as they were.
+// counters and the gain index stay as they were; the same holds when the
+// caller's gain, projection or adaptive Advance panics, since all of them
+// run before the commit.
 func (c *core) step(y []float64) error {
 	a := c.gain.Gain(c.gainIdx)
 	if !(a >= 0) || math.IsInf(a, 1) {
@@ -141,6 +143,17 @@ func (c *core) step(y []float64) error {
 			}
 		}
 	}
+	// Ask an adaptive gain about the index before anything is committed:
+	// Advance is the caller's code and may panic, and the step must then
+	// leave the core as it was.
+	advance := c.adapt == nil
+	if c.adapt != nil {
+		var prev []float64
+		if c.hasPrev {
+			prev = c.prev
+		}
+		advance = c.adapt.Advance(y, prev)
+	}
 	// Commit.
 	c.x, c.next = next, x
 	switch {
@@ -155,18 +168,12 @@ func (c *core) step(y []float64) error {
 	c.active = active
 	c.limited = limited
 	c.lastGain = a
+	if advance {
+		c.gainIdx++
+	}
 	if c.adapt != nil {
-		var prev []float64
-		if c.hasPrev {
-			prev = c.prev
-		}
-		if c.adapt.Advance(y, prev) {
-			c.gainIdx++
-		}
 		copy(c.prev, y)
 		c.hasPrev = true
-	} else {
-		c.gainIdx++
 	}
 	c.steps++
 	if c.steps > c.burnIn {

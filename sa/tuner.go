@@ -75,7 +75,9 @@ type TunerSettings struct {
 	// It must be quick (count, copy, hand off to a channel with a default
 	// case) and must not call methods of the tuner other than Param and
 	// Param1. The slices in Update are valid only during the call. Readers
-	// of the parameter never wait for it.
+	// of the parameter never wait for it. If it panics, the change it was
+	// told about stands, the lock is released and the panic reaches the
+	// caller of the method that made the change.
 	OnUpdate func(u Update)
 }
 
@@ -113,8 +115,26 @@ func (s TunerSettings) resolve(d int) (TunerSettings, error) {
 		}
 		s.MaxChange = append([]float64(nil), s.MaxChange...)
 	}
-	if b, ok := s.Projection.(Box); ok {
-		s.Projection = Box{Lower: append([]float64(nil), b.Lower...), Upper: append([]float64(nil), b.Upper...)}
+	// The projections of this package are copied (a pointer to one is
+	// replaced by a copy of its value), so that the caller's slices do not
+	// move the constraint later. A caller's own Projection is kept as given.
+	switch p := s.Projection.(type) {
+	case *Box:
+		if p == nil {
+			return s, settingsErr("TunerSettings.Projection is a nil *Box")
+		}
+		s.Projection = *p
+	case *Ball:
+		if p == nil {
+			return s, settingsErr("TunerSettings.Projection is a nil *Ball")
+		}
+		s.Projection = *p
+	}
+	switch p := s.Projection.(type) {
+	case Box:
+		s.Projection = Box{Lower: append([]float64(nil), p.Lower...), Upper: append([]float64(nil), p.Upper...)}
+	case Ball:
+		s.Projection = Ball{Center: append([]float64(nil), p.Center...), Radius: p.Radius}
 	}
 	if v, ok := s.Projection.(validator); ok {
 		if err := v.validate(d); err != nil {
@@ -179,7 +199,10 @@ type Update struct {
 // TunerStats counts what a tuner did with the reports it received. Every
 // call of Report lands in exactly one of the report counters, so
 // Applied+Stale+Frozen+NotFinite+Future+Failed+AfterClose is the number of
-// reports sent.
+// reports sent. Each counter stops at MaxSnapshotCount (2⁵³, 9·10¹⁵ calls),
+// and Report refuses updates once Steps reaches it (the update would have
+// no gain index that a snapshot can hold), so a tuner's own snapshot always
+// restores.
 type TunerStats struct {
 	Version uint64 // current published version
 	Steps   int    // updates applied by the core (k of the next update)
@@ -194,6 +217,15 @@ type TunerStats struct {
 
 	Overrides uint64 // calls of Override that set the parameter
 	Restores  uint64 // calls of Restore that replaced the state
+}
+
+// count1 adds 1 to a counter of TunerStats unless it has reached
+// MaxSnapshotCount, where it stays: a tuner's counters never leave the range
+// that Restore accepts.
+func count1(c *uint64) {
+	if *c < MaxSnapshotCount {
+		*c++
+	}
 }
 
 // Dropped returns Stale + Frozen.
@@ -281,8 +313,10 @@ type Tuner struct {
 
 // NewTuner returns a tuner that starts at x0 (copied) with version 0. It
 // returns an error wrapping ErrDimension for an empty x0, ErrSettings for
-// invalid settings (naming the field), ErrNotFinite for a non-finite x0 and
-// ErrOutOfBounds when x0 lies outside the projection or beyond MaxAbs.
+// invalid settings (naming the field) or a non-finite x0, and
+// ErrOutOfBounds when x0 lies outside the projection or beyond MaxAbs: the
+// rule for starting points of the pull drivers (RobbinsMonro and the
+// others).
 func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
 	d := len(x0)
 	if d == 0 {
@@ -292,8 +326,8 @@ func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
 	if err != nil {
 		return nil, err
 	}
-	if err := checkPoint(x0, rs); err != nil {
-		return nil, fmt.Errorf("sa: starting point: %w", err)
+	if err := checkInside("x0", x0, rs.Projection, rs.MaxAbs, ErrSettings); err != nil {
+		return nil, err
 	}
 	t := &Tuner{
 		d:      d,
@@ -309,25 +343,6 @@ func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
 	t.vals = make([]atomic.Uint64, ring*t.stride)
 	t.publish()
 	return t, nil
-}
-
-// checkPoint reports whether x is finite and inside the bounds of s.
-func checkPoint(x []float64, s TunerSettings) error {
-	for i, v := range x {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return fmt.Errorf("%w: x[%d] = %v", ErrNotFinite, i, v)
-		}
-		if s.MaxAbs > 0 && math.Abs(v) > s.MaxAbs {
-			return fmt.Errorf("%w: |x[%d]| = %v exceeds MaxAbs = %v", ErrOutOfBounds, i, math.Abs(v), s.MaxAbs)
-		}
-	}
-	if s.Projection != nil {
-		p := append([]float64(nil), x...)
-		if s.Projection.Project(p) {
-			return fmt.Errorf("%w: the projection moves %v to %v", ErrOutOfBounds, x, p)
-		}
-	}
-	return nil
 }
 
 // publish stores the core's iterate as version t.version, which must be
@@ -397,51 +412,55 @@ func (t *Tuner) Param1() (x float64, version uint64) {
 // update itself (Applied, nil; or Rejected with the core's *StepError,
 // e.g. ErrDiverged). Whenever the outcome is not Applied the parameter is
 // unchanged.
+//
+// Panics in the caller's code pass through Report and never leave the
+// tuner locked. A panic in the gain schedule (e.g. a schedule.Func), in
+// the projection or in an adaptive gain's Advance comes before anything
+// changes: the report is not applied and is counted as Failed. A panic in
+// the OnUpdate hook comes after the update: the update stands (published
+// and counted as Applied) and the panic reaches the caller.
 func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 	t.mu.Lock()
+	defer t.mu.Unlock()
 	if t.closed {
-		t.stats.AfterClose++
-		t.mu.Unlock()
+		count1(&t.stats.AfterClose)
 		return Rejected, ErrClosed
 	}
 	if len(y) != t.d {
-		t.stats.Failed++
-		t.mu.Unlock()
+		count1(&t.stats.Failed)
 		return Rejected, fmt.Errorf("%w: measurement has length %d, tuner dimension %d", ErrDimension, len(y), t.d)
 	}
 	for i, v := range y {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
-			t.stats.NotFinite++
-			t.mu.Unlock()
+			count1(&t.stats.NotFinite)
 			return Rejected, fmt.Errorf("%w: Y[%d] = %v (version %d)", ErrNotFinite, i, v, version)
 		}
 	}
 	if version > t.version {
-		cur := t.version
-		t.stats.Future++
-		t.mu.Unlock()
-		return Rejected, fmt.Errorf("%w: version %d, current %d", ErrFutureVersion, version, cur)
+		count1(&t.stats.Future)
+		return Rejected, fmt.Errorf("%w: version %d, current %d", ErrFutureVersion, version, t.version)
 	}
 	lag := t.version - version
 	if version < t.barrier || lag > t.maxLag {
-		t.stats.Stale++
-		t.mu.Unlock()
+		count1(&t.stats.Stale)
 		return Stale, nil
 	}
 	if t.frozen {
-		t.stats.Frozen++
-		t.mu.Unlock()
+		count1(&t.stats.Frozen)
 		return Frozen, nil
 	}
-	copy(t.ybuf, y)
 	k := t.c.steps
-	if err := t.c.step(t.ybuf); err != nil {
+	if k >= MaxSnapshotCount {
+		count1(&t.stats.Failed)
+		return Rejected, &StepError{Step: k, Err: fmt.Errorf("%w: the step counter has reached MaxSnapshotCount = 2⁵³, past which no gain is defined; restore a snapshot with fewer steps or build a new tuner", ErrGain)}
+	}
+	copy(t.ybuf, y)
+	if err := t.step(); err != nil {
 		if errors.Is(err, ErrNotFinite) {
-			t.stats.NotFinite++
+			count1(&t.stats.NotFinite)
 		} else {
-			t.stats.Failed++
+			count1(&t.stats.Failed)
 		}
-		t.mu.Unlock()
 		return Rejected, err
 	}
 	t.version++
@@ -453,8 +472,24 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 			X: t.c.x, Y: t.ybuf, Active: t.c.active, Limited: t.c.limited,
 		})
 	}
-	t.mu.Unlock()
 	return Applied, nil
+}
+
+// step applies the update with the measurement in ybuf; mu is held. A
+// panic in the caller's code that the core runs (the gain, the projection,
+// an adaptive gain's Advance) happens before the core commits anything (see
+// core.step), so the report is not applied: it is counted as Failed and
+// the panic goes on to Report's caller, which releases the lock on the way.
+func (t *Tuner) step() (err error) {
+	done := false
+	defer func() {
+		if !done {
+			count1(&t.stats.Failed)
+		}
+	}()
+	err = t.c.step(t.ybuf)
+	done = true
+	return err
 }
 
 // Report1 is Report for a one-dimensional tuner with the measurement y.
@@ -468,25 +503,30 @@ func (t *Tuner) Report1(version uint64, y float64) (Outcome, error) {
 // override are dropped as stale: they describe another parameter. The step
 // counter and the gain index continue; a frozen tuner stays frozen, so
 // Freeze followed by Override pins the parameter. x must be finite and
-// inside the bounds (ErrNotFinite, ErrOutOfBounds); it is an error after
-// Close. On error nothing changes.
+// inside the bounds (ErrNotFinite, ErrOutOfBounds, by the same rule as a
+// starting point except that a non-finite value is ErrNotFinite); a wrong
+// length is ErrDimension; it is ErrClosed after Close. On error nothing
+// changes. A panic in the projection (checking x) changes nothing; a panic
+// in the OnUpdate hook comes after the override, which stands.
 func (t *Tuner) Override(x []float64) error {
 	if len(x) != t.d {
 		return fmt.Errorf("%w: override has length %d, tuner dimension %d", ErrDimension, len(x), t.d)
-	}
-	if err := checkPoint(x, t.set); err != nil {
-		return fmt.Errorf("sa: override: %w", err)
 	}
 	t.mu.Lock()
 	defer t.mu.Unlock()
 	if t.closed {
 		return ErrClosed
 	}
+	// Under the lock: the caller's projection is never run concurrently
+	// with itself by the tuner.
+	if err := checkInside("override", x, t.set.Projection, t.set.MaxAbs, ErrNotFinite); err != nil {
+		return err
+	}
 	t.c.override(x)
 	t.version++
 	t.barrier = t.version
 	t.publish()
-	t.stats.Overrides++
+	count1(&t.stats.Overrides)
 	t.notify(OverrideUpdate)
 	return nil
 }
@@ -502,15 +542,15 @@ func (t *Tuner) notify(kind UpdateKind) {
 // Resume. The parameter stays readable and Override still works.
 func (t *Tuner) Freeze() {
 	t.mu.Lock()
+	defer t.mu.Unlock()
 	t.frozen = true
-	t.mu.Unlock()
 }
 
 // Resume undoes Freeze.
 func (t *Tuner) Resume() {
 	t.mu.Lock()
+	defer t.mu.Unlock()
 	t.frozen = false
-	t.mu.Unlock()
 }
 
 // IsFrozen reports whether the tuner is frozen.
@@ -526,8 +566,8 @@ func (t *Tuner) IsFrozen() bool {
 // and always returns nil.
 func (t *Tuner) Close() error {
 	t.mu.Lock()
+	defer t.mu.Unlock()
 	t.closed = true
-	t.mu.Unlock()
 	return nil
 }
 

@@ -254,7 +254,7 @@ func TestTunerBadInput(t *testing.T) {
 			{"box dimension", []float64{1, 1}, TunerSettings{Gain: schedule.Constant(1), Projection: tunerBox1(0, 2)}, ErrDimension},
 			{"x0 outside box", []float64{3}, TunerSettings{Gain: schedule.Constant(1), Projection: tunerBox1(0, 2)}, ErrOutOfBounds},
 			{"x0 beyond MaxAbs", []float64{3}, TunerSettings{Gain: schedule.Constant(1), MaxAbs: 2}, ErrOutOfBounds},
-			{"x0 NaN", []float64{math.NaN()}, TunerSettings{Gain: schedule.Constant(1)}, ErrNotFinite},
+			{"x0 NaN", []float64{math.NaN()}, TunerSettings{Gain: schedule.Constant(1)}, ErrSettings}, // the starting-point rule of the pull drivers (checkInside)
 			{"empty x0", nil, TunerSettings{Gain: schedule.Constant(1)}, ErrDimension},
 			{"max change 0", []float64{1}, TunerSettings{Gain: schedule.Constant(1), MaxChange: []float64{0}}, ErrSettings},
 			{"max change NaN", []float64{1}, TunerSettings{Gain: schedule.Constant(1), MaxChange: []float64{math.NaN()}}, ErrSettings},
