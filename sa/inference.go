@@ -26,7 +26,10 @@ const (
 	// and the diagonal otherwise.
 	CovarianceAuto CovarianceMode = iota
 	// CovarianceFull keeps the full d×d matrix: d² numbers, and O(d²) work
-	// each time a batch closes (a vanishing share of the steps).
+	// each time a batch closes (a vanishing share of the steps). A
+	// dimension at which the matrix and the reported copy (2d² float64s)
+	// would exceed MaxBufferBytes (d > 8191) is refused with
+	// ErrSettings.
 	CovarianceFull
 	// CovarianceDiagonal keeps the variances only: standard errors and
 	// intervals per coordinate, no correlations, O(d) memory.

@@ -117,6 +117,9 @@ func TestMaxBufferBytesBoundary(t *testing.T) {
 	for need(d+1) <= sa.MaxBufferBytes {
 		d++
 	}
+	if d != 8191 {
+		t.Errorf("largest full covariance within MaxBufferBytes has d = %d; the CovarianceFull doc says 8191", d)
+	}
 	in := sa.Inference{Covariance: sa.CovarianceFull}
 	s := sa.Settings{Gain: gain, Inference: in, MaxSteps: 0}
 	// Refused at d+1 with the byte count in the message.

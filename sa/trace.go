@@ -16,7 +16,8 @@ const DefaultTraceMax = 1024
 // memory. When Max records are held, every second one is dropped and the
 // interval doubles, so the trace always spans the whole run with between
 // Max/2 and Max records. Memory is Max·(3d+4) float64s, allocated once
-// before the first step; recording allocates nothing.
+// before the first step; recording allocates nothing. Settings that would
+// need more than MaxBufferBytes for it are refused (ErrSettings).
 type Tracing struct {
 	// Every is the number of steps between records, ≥ 1.
 	Every int
