@@ -1,12 +1,15 @@
 package sa
 
 import (
+	"context"
 	"fmt"
 	"math"
+	"math/rand/v2"
 	"slices"
 
 	"gonum.org/v1/gonum/floats"
 
+	"github.com/stochroot/stochroot/oracle"
 	"github.com/stochroot/stochroot/schedule"
 )
 
@@ -48,8 +51,14 @@ type core struct {
 	maxChange []float64
 	limited   bool
 
+	// saved is a copy of x taken before each measurement of a pull run, so
+	// that an oracle that writes into x (against the contract) can be
+	// detected and undone after a failed step (see measure, restore).
+	saved []float64
+
 	// Inference and tracing, switched on by configure; nil when off.
 	configured bool
+	infWhy     string      // why inf is nil, for the error bars' Why
 	inf        *batchMeans // batch-means error bars of avg
 	prec       *Precision  // stop once the error bars are this tight
 	trace      *Trace      // every-k-th-step record
@@ -66,9 +75,9 @@ const vectorKernelMin = 64
 // validated.
 func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, maxAbs float64) *core {
 	d := len(x0)
-	buf := make([]float64, 3*d)
+	buf := make([]float64, 4*d)
 	c := &core{
-		x: buf[:d:d], next: buf[d : 2*d : 2*d], avg: buf[2*d:],
+		x: buf[:d:d], next: buf[d : 2*d : 2*d], avg: buf[2*d : 3*d : 3*d], saved: buf[3*d:],
 		burnIn: burnIn, gain: gain, proj: proj, maxAbs: maxAbs,
 	}
 	copy(c.x, x0)
@@ -219,7 +228,12 @@ func (c *core) configure(s Settings, perCall int) {
 	// Nothing will be averaged when the burn-in covers the whole step
 	// budget; then the error bars (O(d²) memory) are not set up at all.
 	nothingAveraged := s.MaxSteps != NoLimit && s.BurnIn >= s.MaxSteps
-	if s.Inference.on() && !nothingAveraged {
+	switch {
+	case !s.Inference.on():
+		c.infWhy = "inference is off (Inference.Covariance = CovarianceOff)"
+	case nothingAveraged:
+		c.infWhy = fmt.Sprintf("nothing is averaged: the burn-in (Settings.BurnIn = %d) covers the whole step budget (Settings.MaxSteps = %d)", s.BurnIn, s.MaxSteps)
+	default:
 		c.inf = newBatchMeans(d, s.Inference)
 		c.prec = s.Precision
 	}
@@ -254,6 +268,8 @@ func (c *core) fill(r *Result) {
 		r.ErrorBars = c.inf.errorBars(c.avg, c.nAvg)
 	case c.inf != nil:
 		r.ErrorBars = ErrorBars{Level: c.inf.level, Assumes: batchMeansAssumes, Why: "no iterate has been averaged yet"}
+	case c.infWhy != "":
+		r.ErrorBars = ErrorBars{Why: c.infWhy}
 	default:
 		r.ErrorBars = ErrorBars{Why: "inference is off (Inference.Covariance = CovarianceOff)"}
 	}
@@ -261,6 +277,43 @@ func (c *core) fill(r *Result) {
 		r.Trace = c.trace.snapshot(c)
 	}
 	r.Projected = c.projected
+}
+
+// measure takes the measurement y at the current iterate for step k with
+// oracle.MeasureStep, after saving a copy of the iterate (see restore). It
+// allocates nothing.
+func (c *core) measure(ctx context.Context, h oracle.Field, y []float64, rng *rand.Rand) error {
+	copy(c.saved, c.x)
+	return oracle.MeasureStep(ctx, h, c.steps, y, c.x, rng)
+}
+
+// restore is called after a measurement or a step failed. If the oracle
+// wrote into x (which the contract forbids), it puts back the iterate saved
+// by measure, so that the Result holds the last accepted iterate, and, when
+// what the oracle wrote is not finite, returns the error that says so
+// (wrapping ErrNotFinite), which is the cause of the failure. It returns nil
+// when x is as it was.
+func (c *core) restore() error {
+	x, saved := c.x, c.saved[:len(c.x)]
+	modified := false
+	for i, v := range x {
+		if v != saved[i] { // saved is finite: NaN compares unequal
+			modified = true
+			break
+		}
+	}
+	if !modified {
+		return nil
+	}
+	var err error
+	for i, v := range x {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			err = &StepError{Step: c.steps, Err: fmt.Errorf("%w: the oracle modified x: it wrote x[%d] = %v into the point it was given (an oracle must not write to x)", ErrNotFinite, i, v)}
+			break
+		}
+	}
+	copy(x, saved)
+	return err
 }
 
 // clampChange moves next[i] to within ±m[i] of x[i] and reports whether any

@@ -72,14 +72,18 @@
 // # Concurrency
 //
 // A driver call runs on the calling goroutine. [Replicate] calls its
-// RunFunc from several goroutines. Oracles, schedules and projections may
+// RunFunc from several goroutines (and recovers a panic in it into an
+// *oracle.PanicError for that run). Oracles, schedules and projections may
 // be shared between concurrent runs only if they are safe for concurrent
-// use. Of this module's, the schedules, projections, function adapters and
-// the gradient-free adapters oracle.KieferWolfowitz and oracle.SPSA are
-// (the drivers call them with the step index, never through SetStep); an
-// oracle.MiniBatch is not, since its sampler's position belongs to one
-// run: [MinimizeSum] holds it for the whole run, and a second run on the
-// same MiniBatch fails with oracle.ErrBusy. A [Tuner] is safe for concurrent use:
+// use. Of this module's, the schedules, projections, function adapters
+// (oracle.FieldFunc, oracle.GradientFunc, oracle.ValueFunc,
+// oracle.ContextFieldFunc, oracle.ContextValueFunc) and the gradient-free
+// adapters oracle.KieferWolfowitz and oracle.SPSA are, provided the
+// caller's functions they wrap are (the drivers call the adapters with the
+// step index, never through SetStep); an oracle.MiniBatch (also one from
+// oracle.NewFullBatch) is not, since its sampler's position belongs to one
+// run: [MinimizeSum] holds it for the whole run, and a second concurrent
+// run on the same MiniBatch fails with oracle.ErrBusy. A [Tuner] is safe for concurrent use:
 // reads of the parameter take no lock and allocate nothing, reports
 // serialise on one short critical section (see Tuner).
 //

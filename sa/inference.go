@@ -26,7 +26,10 @@ const (
 	// and the diagonal otherwise.
 	CovarianceAuto CovarianceMode = iota
 	// CovarianceFull keeps the full d×d matrix: d² numbers, and O(d²) work
-	// each time a batch closes (a vanishing share of the steps).
+	// each time a batch closes (a vanishing share of the steps). A
+	// dimension at which the matrix and the reported copy (2d² float64s)
+	// would exceed MaxBufferBytes (d > 8191) is refused with
+	// ErrSettings.
 	CovarianceFull
 	// CovarianceDiagonal keeps the variances only: standard errors and
 	// intervals per coordinate, no correlations, O(d) memory.
@@ -167,7 +170,27 @@ func (in Inference) resolve(d int, g schedule.Schedule) (Inference, error) {
 	case in.MinBatches < 2:
 		return in, settingsErr("Inference.MinBatches = %d: an interval needs at least 2 batches (1 degree of freedom)", in.MinBatches)
 	}
+	if in.on() {
+		if need := batchMeansBytes(d, in.Covariance == CovarianceFull); need > MaxBufferBytes {
+			what := "CovarianceDiagonal"
+			if in.Covariance == CovarianceFull {
+				what = "CovarianceFull (a d×d matrix)"
+			}
+			return in, settingsErr("Inference.Covariance = %s at dimension %d needs %d bytes, more than MaxBufferBytes = %d; use CovarianceDiagonal or CovarianceOff", what, d, need, MaxBufferBytes)
+		}
+	}
 	return in, nil
+}
+
+// batchMeansBytes returns the bytes of the buffers of a batchMeans of
+// dimension d: 4d numbers plus d² (full) or d (diagonal) for the
+// covariance. The error bars built from a full one hold another d².
+func batchMeansBytes(d int, full bool) uint64 {
+	n := mulBytes(5, count(d))
+	if full {
+		n = addBytes(mulBytes(4, count(d)), mulBytes(2, mulBytes(count(d), count(d))))
+	}
+	return mulBytes(n, 8)
 }
 
 // gainExponent returns the exponent α of a power gain when it lies in
@@ -456,12 +479,14 @@ func (e *ErrorBars) Interval(i int) (lo, hi float64, err error) {
 }
 
 // HalfWidthsAt writes into dst the half-widths at another confidence level
-// and returns dst (allocated when nil). It returns an error when the level
-// is not in (0, 1) or the bars are not available. It panics if dst is not
-// nil and has the wrong length.
+// and returns dst (allocated when nil). It returns an error wrapping
+// ErrSettings when the level is not in (0, 1), one wrapping
+// ErrNotAvailable when the bars are not available, and one wrapping
+// ErrDimension when dst is not nil and has the wrong length; dst is then
+// left unchanged.
 func (e *ErrorBars) HalfWidthsAt(dst []float64, level float64) ([]float64, error) {
 	if !(level > 0 && level < 1) {
-		return dst, fmt.Errorf("sa: confidence level %v: must lie strictly between 0 and 1", level)
+		return dst, settingsErr("HalfWidthsAt: confidence level %v: must lie strictly between 0 and 1", level)
 	}
 	if err := e.Err(); err != nil {
 		return dst, err
@@ -470,7 +495,7 @@ func (e *ErrorBars) HalfWidthsAt(dst []float64, level float64) ([]float64, error
 		dst = make([]float64, len(e.StdErr))
 	}
 	if len(dst) != len(e.StdErr) {
-		panic("sa: length mismatch")
+		return dst, fmt.Errorf("%w: HalfWidthsAt: dst has length %d, the error bars have dimension %d", ErrDimension, len(dst), len(e.StdErr))
 	}
 	q := tQuantile(e.DF, level)
 	for i, s := range e.StdErr {

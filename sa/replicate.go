@@ -2,15 +2,27 @@ package sa
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"math"
 	"math/rand/v2"
 	"runtime"
+	"runtime/debug"
 	"sync"
 	"sync/atomic"
+	"unsafe"
 
 	"gonum.org/v1/gonum/mat"
+
+	"github.com/stochroot/stochroot/oracle"
 )
+
+// ErrInvalidResult reports a run of a replication study that returned a
+// Result that cannot be used as an estimate: an empty X, an Average whose
+// length differs from X's, an estimate of another length than run 0's
+// (then ErrDimension is wrapped as well), or a non-finite entry. It
+// arrives wrapped in a *ReplicationError that names the run.
+var ErrInvalidResult = errors.New("sa: replication returned an unusable result")
 
 // streamReplicate is the stream from which Replicate draws the seeds of
 // its runs.
@@ -35,10 +47,21 @@ type Replications struct {
 // RunFunc is run number run (0 ≤ run < R) of a replication study: it runs
 // with the given seed
 // (typically by setting Settings.Seed and calling a driver) and returns its
-// Result. Result.Estimate() is the run's estimate. It is called from
-// several goroutines at once, so what it shares must be safe for
-// concurrent use (the oracles, schedules and projections of this module
-// are).
+// Result. Result.Estimate() is the run's estimate; it must be non-empty,
+// finite and of the same length in every run (ErrInvalidResult otherwise).
+// A panic in a RunFunc is recovered into an *oracle.PanicError and
+// reported as the failure of that run.
+//
+// A RunFunc is called from several goroutines at once, so what the runs
+// share must be safe for concurrent use. Of this module's, the schedules,
+// the projections, the function adapters (oracle.FieldFunc,
+// oracle.GradientFunc, oracle.ValueFunc, oracle.ContextFieldFunc,
+// oracle.ContextValueFunc) and the gradient-free adapters
+// oracle.KieferWolfowitz and oracle.SPSA may be shared between concurrent
+// runs, provided the caller's functions they wrap are safe for concurrent
+// use. An oracle.MiniBatch (or oracle.NewFullBatch) may not: its sampler's
+// position belongs to one run, and a second run on the same one fails with
+// oracle.ErrBusy. Build one per run inside the RunFunc.
 type RunFunc func(ctx context.Context, run int, seed uint64) (Result, error)
 
 // Replicated is the outcome of Replicate.
@@ -91,9 +114,12 @@ func (e *ReplicationError) Unwrap() error { return e.Err }
 // If a run fails, no new runs are started, the runs already started finish,
 // and the error of the failed run with the smallest index is returned as a
 // *ReplicationError (that index does not depend on the number of workers).
-// On cancellation of ctx the error wraps ctx.Err(). In both cases the
-// returned Replicated has no error bars (Available is false). All runs must
-// return estimates of one length.
+// A run that panics fails with an *oracle.PanicError; a run whose Result
+// is unusable fails with ErrInvalidResult. On cancellation of ctx the error
+// wraps ctx.Err(). In all these cases the returned Replicated has no error
+// bars (Available is false). Replicate returns only after every goroutine
+// it started has finished. A study whose bookkeeping would need more than
+// MaxBufferBytes is refused with ErrSettings.
 func Replicate(ctx context.Context, s Replications, run RunFunc) (Replicated, error) {
 	var out Replicated
 	if run == nil {
@@ -117,6 +143,9 @@ func Replicate(ctx context.Context, s Replications, run RunFunc) (Replicated, er
 		workers = runtime.GOMAXPROCS(0)
 	}
 	workers = min(workers, s.Runs)
+	if need := mulBytes(count(s.Runs), perRunBytes); need > MaxBufferBytes {
+		return out, settingsErr("Replications.Runs = %d: the study's bookkeeping needs %d bytes, more than MaxBufferBytes = %d", s.Runs, need, MaxBufferBytes)
+	}
 
 	R := s.Runs
 	seeds := make([]uint64, R)
@@ -142,7 +171,7 @@ func Replicate(ctx context.Context, s Replications, run RunFunc) (Replicated, er
 				if i >= R {
 					return
 				}
-				results[i], errs[i] = run(ctx, i, seeds[i])
+				results[i], errs[i] = callRun(ctx, run, i, seeds[i])
 				ran[i] = true
 				if errs[i] != nil {
 					failed.Store(true)
@@ -166,23 +195,78 @@ func Replicate(ctx context.Context, s Replications, run RunFunc) (Replicated, er
 			return out, fmt.Errorf("sa: replication study stopped before run %d: %w", i, context.Cause(ctx))
 		}
 	}
-	out.Estimates = make([][]float64, R)
-	out.Reasons = make([]Reason, R)
 	d := len(results[0].Estimate())
 	for i := range results {
-		r := &results[i]
-		est := r.Estimate()
-		if len(est) != d {
-			out.ErrorBars.Why = "runs returned estimates of different lengths"
-			return out, &ReplicationError{Run: i, Seed: seeds[i], Err: fmt.Errorf("%w: estimate has length %d, run 0 had %d", ErrDimension, len(est), d)}
+		if err := checkRunResult(&results[i], d); err != nil {
+			out.ErrorBars.Why = "a run returned an unusable result"
+			return out, &ReplicationError{Run: i, Seed: seeds[i], Err: err}
 		}
-		out.Estimates[i] = append([]float64(nil), est...)
+	}
+	if need := mulBytes(mulBytes(count(R), count(d)), 8); need > MaxBufferBytes {
+		out.ErrorBars.Why = "the estimates are too large to collect"
+		return out, settingsErr("Replications.Runs = %d: %d estimates of dimension %d need %d bytes, more than MaxBufferBytes = %d", R, R, d, need, MaxBufferBytes)
+	}
+	out.Estimates = make([][]float64, R)
+	out.Reasons = make([]Reason, R)
+	for i := range results {
+		r := &results[i]
+		out.Estimates[i] = append([]float64(nil), r.Estimate()...)
 		out.Reasons[i] = r.Reason
 		out.Steps += r.Steps
 		out.Measurements += r.Measurements
 	}
-	out.ErrorBars = meanErrorBars(out.Estimates, level)
+	eb := meanErrorBars(out.Estimates, level)
+	for i := range eb.Center {
+		if c, h := eb.Center[i], eb.HalfWidth[i]; math.IsNaN(c) || math.IsInf(c, 0) || math.IsNaN(h) || math.IsInf(h, 0) {
+			out.ErrorBars.Why = "the mean or the spread of the estimates overflows"
+			return out, fmt.Errorf("%w: the mean (%v) or the half-width (%v) of coordinate %d of the runs' estimates overflows", ErrInvalidResult, c, h, i)
+		}
+	}
+	out.ErrorBars = eb
 	return out, nil
+}
+
+// perRunBytes is what Replicate holds per run while the runs are going:
+// the Result, the seed, the error, the flag, the estimate's slice header
+// and the reason.
+const perRunBytes = uint64(unsafe.Sizeof(Result{}) + unsafe.Sizeof(uint64(0)) + unsafe.Sizeof(error(nil)) +
+	unsafe.Sizeof(false) + unsafe.Sizeof([]float64(nil)) + unsafe.Sizeof(Reason(0)))
+
+// callRun calls run and turns a panic into an *oracle.PanicError, so that
+// a faulty run cannot take the process down from a goroutine the caller
+// does not own.
+func callRun(ctx context.Context, run RunFunc, i int, seed uint64) (r Result, err error) {
+	defer func() {
+		if p := recover(); p != nil {
+			r, err = Result{}, &oracle.PanicError{Value: p, Stack: debug.Stack()}
+		}
+	}()
+	return run(ctx, i, seed)
+}
+
+// checkRunResult reports what makes r unusable as the estimate of a run
+// of a study whose run 0 has an estimate of length d, or nil.
+func checkRunResult(r *Result, d int) error {
+	if len(r.X) == 0 {
+		return fmt.Errorf("%w: Result.X is empty (length 0)", ErrInvalidResult)
+	}
+	if r.Average != nil && len(r.Average) != len(r.X) {
+		return fmt.Errorf("%w: %w: Result.Average has length %d, Result.X %d", ErrInvalidResult, ErrDimension, len(r.Average), len(r.X))
+	}
+	if est := r.Estimate(); len(est) != d {
+		return fmt.Errorf("%w: %w: estimate has length %d, run 0's had %d", ErrInvalidResult, ErrDimension, len(est), d)
+	}
+	for _, f := range [...]struct {
+		name string
+		v    []float64
+	}{{"X", r.X}, {"Average", r.Average}} {
+		for j, v := range f.v {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return fmt.Errorf("%w: Result.%s[%d] = %v is not finite", ErrInvalidResult, f.name, j, v)
+			}
+		}
+	}
+	return nil
 }
 
 // meanErrorBars returns the t error bars of the mean of xs (len ≥ 2), with

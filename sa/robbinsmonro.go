@@ -38,7 +38,10 @@ const (
 //
 // The Result is filled in on every return, with the last accepted iterate.
 // x0 is copied and never modified. The oracle receives the stream
-// rand.NewPCG(s.Seed, streamMeasure) and must not modify or retain x.
+// rand.NewPCG(s.Seed, streamMeasure) and must not modify or retain x; one
+// that writes a NaN or ±Inf into x fails the step with an error wrapping
+// ErrNotFinite that says the oracle modified x, and the Result keeps the
+// iterate as it was before that measurement.
 //
 // Every measurement is taken with oracle.MeasureStep: an oracle that
 // implements oracle.ContextField receives ctx and the step index k (the
@@ -132,12 +135,21 @@ func (sv *Solver) Step() error {
 	if sv.c == nil {
 		return fmt.Errorf("%w: the solver was not constructed successfully", ErrSettings)
 	}
-	err := oracle.MeasureStep(context.Background(), sv.h, sv.c.steps, sv.y, sv.c.x, sv.rng)
+	err := sv.c.measure(context.Background(), sv.h, sv.y, sv.rng)
 	sv.r.Measurements += sv.perCall
 	if err != nil {
+		if merr := sv.c.restore(); merr != nil {
+			return merr
+		}
 		return &StepError{Step: sv.c.steps, Err: fmt.Errorf("measurement: %w", err)}
 	}
-	return sv.c.step(sv.y)
+	if err := sv.c.step(sv.y); err != nil {
+		if merr := sv.c.restore(); merr != nil {
+			return merr
+		}
+		return err
+	}
+	return nil
 }
 
 // X returns the current iterate. The slice is owned by the Solver and is
@@ -243,9 +255,13 @@ func runPullWith(ctx context.Context, c *core, h oracle.Field, y []float64, rng 
 			default:
 			}
 		}
-		err := oracle.MeasureStep(ctx, h, c.steps, y, c.x, rng)
+		err := c.measure(ctx, h, y, rng)
 		r.Measurements += perCall
 		if err != nil {
+			if merr := c.restore(); merr != nil {
+				r.Reason = Failed
+				return merr
+			}
 			if ctx.Err() != nil {
 				// The measurement gave up because the run was
 				// cancelled (a context-aware oracle): a cancellation,
@@ -258,6 +274,9 @@ func runPullWith(ctx context.Context, c *core, h oracle.Field, y []float64, rng 
 		}
 		if err := c.step(y); err != nil {
 			r.Reason = Failed
+			if merr := c.restore(); merr != nil {
+				return merr
+			}
 			return err
 		}
 		if c.precise() {

@@ -2,9 +2,45 @@ package sa
 
 import (
 	"math"
+	"math/bits"
 
 	"github.com/stochroot/stochroot/schedule"
 )
+
+// MaxBufferBytes is the most memory, in bytes, that settings may ask one
+// buffer of a run to hold: the covariance of the error bars
+// (Inference.Covariance), the trace (Settings.Trace) and the bookkeeping of
+// a replication study (Replications.Runs). Settings that would need more are
+// refused with an error wrapping ErrSettings that names the field and the
+// bytes it would need, instead of failing with an out-of-memory crash. The
+// caller's own slices (x0, the data) are not counted.
+const MaxBufferBytes = 1 << 30
+
+// mulBytes returns a·b saturated at math.MaxInt64 instead of overflowing.
+func mulBytes(a, b uint64) uint64 {
+	hi, lo := bits.Mul64(a, b)
+	if hi != 0 || lo > math.MaxInt64 {
+		return math.MaxInt64
+	}
+	return lo
+}
+
+// count converts a size to uint64 for mulBytes and addBytes; a negative
+// size (rejected elsewhere) counts as 0.
+func count(n int) uint64 {
+	if n < 0 {
+		return 0
+	}
+	return uint64(n)
+}
+
+// addBytes returns a + b saturated at math.MaxInt64.
+func addBytes(a, b uint64) uint64 {
+	if a > math.MaxInt64-b || b > math.MaxInt64 {
+		return math.MaxInt64
+	}
+	return a + b
+}
 
 // NoLimit switches off a budget in Settings (MaxSteps).
 const NoLimit = -1
@@ -124,7 +160,7 @@ func (s Settings) resolve(d int) (Settings, error) {
 		s.Precision = &p
 	}
 	if s.Trace != nil {
-		t, err := s.Trace.resolve()
+		t, err := s.Trace.resolve(d)
 		if err != nil {
 			return s, err
 		}

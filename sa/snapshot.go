@@ -252,7 +252,7 @@ func checkFields(m map[string]json.RawMessage, what string, names []string, opti
 
 // count decodes a counter in [0, MaxSnapshotCount].
 // The message calls the field prefix+name.
-func count(m map[string]json.RawMessage, prefix, name string) (uint64, error) {
+func snapshotCounter(m map[string]json.RawMessage, prefix, name string) (uint64, error) {
 	var v int64
 	if err := json.Unmarshal(m[name], &v); err != nil {
 		return 0, snapErr("field %q is not an integer in [0, MaxSnapshotCount = 2⁵³]: %v", prefix+name, err)
@@ -338,7 +338,7 @@ func (t *Tuner) decodeSnapshot(data []byte) (*snapshot, error) {
 	}
 	var n [3]uint64
 	for i, name := range []string{"steps", "averaged", "gain_index"} {
-		if n[i], err = count(m, "", name); err != nil {
+		if n[i], err = snapshotCounter(m, "", name); err != nil {
 			return nil, err
 		}
 	}
@@ -371,7 +371,7 @@ func (t *Tuner) decodeSnapshot(data []byte) (*snapshot, error) {
 	}
 	c := &s.Counts
 	for i, dst := range []*uint64{&c.Applied, &c.Stale, &c.Frozen, &c.NotFinite, &c.Future, &c.Failed, &c.AfterClose, &c.Overrides, &c.Restores} {
-		if *dst, err = count(cm, "counts.", snapshotCountFields[i]); err != nil {
+		if *dst, err = snapshotCounter(cm, "counts.", snapshotCountFields[i]); err != nil {
 			return nil, err
 		}
 	}

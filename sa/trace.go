@@ -16,7 +16,8 @@ const DefaultTraceMax = 1024
 // memory. When Max records are held, every second one is dropped and the
 // interval doubles, so the trace always spans the whole run with between
 // Max/2 and Max records. Memory is Max·(3d+4) float64s, allocated once
-// before the first step; recording allocates nothing.
+// before the first step; recording allocates nothing. Settings that would
+// need more than MaxBufferBytes for it are refused (ErrSettings).
 type Tracing struct {
 	// Every is the number of steps between records, ≥ 1.
 	Every int
@@ -24,7 +25,9 @@ type Tracing struct {
 	Max int
 }
 
-func (t Tracing) resolve() (Tracing, error) {
+// resolve validates t for dimension d and fills in defaults. The storage of
+// Max records of 4 + 3d float64s must fit in MaxBufferBytes.
+func (t Tracing) resolve(d int) (Tracing, error) {
 	if t.Every < 1 {
 		return t, settingsErr("Tracing.Every = %d: the interval between records must be ≥ 1 step", t.Every)
 	}
@@ -34,7 +37,15 @@ func (t Tracing) resolve() (Tracing, error) {
 	case t.Max < 2:
 		return t, settingsErr("Tracing.Max = %d: must be ≥ 2 (0 means %d)", t.Max, DefaultTraceMax)
 	}
+	if need := traceBytes(t.Max, d); need > MaxBufferBytes {
+		return t, settingsErr("Tracing.Max = %d: %d records of dimension %d need %d bytes, more than MaxBufferBytes = %d; lower Max", t.Max, t.Max, d, need, MaxBufferBytes)
+	}
 	return t, nil
+}
+
+// traceBytes returns the bytes of max records of dimension d.
+func traceBytes(max, d int) uint64 {
+	return mulBytes(mulBytes(count(max), addBytes(4, mulBytes(3, count(d)))), 8)
 }
 
 // TracePoint is one record of a trace: the state after Step updates.
