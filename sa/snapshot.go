@@ -250,7 +250,7 @@ func checkFields(m map[string]json.RawMessage, what string, names []string, opti
 	return nil
 }
 
-// count decodes a counter in [0, MaxSnapshotCount].
+// snapshotCounter decodes a counter in [0, MaxSnapshotCount].
 // The message calls the field prefix+name.
 func snapshotCounter(m map[string]json.RawMessage, prefix, name string) (uint64, error) {
 	var v int64
