@@ -24,7 +24,7 @@ const (
 	DefaultRetries = 2
 	// DefaultPoll is the longest pause between two asks for a free worker
 	// when Settings.Poll is 0.
-	DefaultPoll = 2 * time.Millisecond
+	DefaultPoll = 10 * time.Millisecond
 	// DefaultQueue is the queue group of [Serve] when WorkerSettings.Queue
 	// is empty.
 	DefaultQueue = "stochroot-workers"
@@ -124,9 +124,8 @@ type client struct {
 
 	requests, answered, resent, busy atomic.Int64
 
-	// waiting holds the requests that found every slot busy, oldest
-	// first; each reply wakes the oldest, since a reply means a slot has
-	// just come free.
+	// waiting holds the requests that found every slot busy; a reply
+	// wakes them all, since it means a slot has just come free.
 	mu      sync.Mutex
 	waiting []chan struct{}
 }
@@ -152,15 +151,17 @@ func (c *client) leave(ch chan struct{}) {
 	}
 }
 
-// replied records a reply and wakes the oldest waiting request.
+// replied records a reply and wakes every waiting request: the freed slot
+// may be on any worker, and the queue group picks one at random for each
+// ask, so all of them asking finds it soonest.
 func (c *client) replied() {
 	c.last.Store(time.Now().UnixNano())
 	c.mu.Lock()
-	if len(c.waiting) > 0 {
-		c.waiting[0] <- struct{}{}
-		c.waiting[0] = nil
-		c.waiting = c.waiting[1:]
+	for i, w := range c.waiting {
+		w <- struct{}{}
+		c.waiting[i] = nil
 	}
+	c.waiting = c.waiting[:0]
 	c.mu.Unlock()
 }
 
