@@ -443,3 +443,29 @@ func TestSettingsErrors(t *testing.T) {
 		}
 	}
 }
+
+// TestDeadlineReachesWorker: the worker's function gets a context whose
+// deadline is the attempt's: Timeout, or less when the run's context ends
+// sooner.
+func TestDeadlineReachesWorker(t *testing.T) {
+	url := startServer(t)
+	left := oracle.ContextValueFunc(func(ctx context.Context, _ []float64, _ *rand.Rand) (float64, error) {
+		d, ok := ctx.Deadline()
+		if !ok {
+			return 0, errors.New("no deadline")
+		}
+		return time.Until(d).Seconds(), nil
+	})
+	startWorkers(t, url, 1, WorkerSettings{Subject: "budget", Value: left})
+	v, _ := NewValue(connect(t, url), Settings{Subject: "budget", Timeout: 3 * time.Second})
+	got, err := v.ValueSeeded(context.Background(), []float64{1}, 1, 2)
+	if err != nil || got <= 2 || got > 3 {
+		t.Errorf("time left on the worker: %v s, %v; want just under the 3 s Timeout", got, err)
+	}
+	ctx, cancel := context.WithTimeout(context.Background(), time.Second)
+	defer cancel()
+	got, err = v.ValueSeeded(ctx, []float64{1}, 1, 2)
+	if err != nil || got <= 0 || got > 1 {
+		t.Errorf("time left on the worker: %v s, %v; want under the run's 1 s", got, err)
+	}
+}
