@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"runtime/debug"
 	"sync"
 	"sync/atomic"
 )
@@ -22,9 +23,10 @@ import (
 // every worker count.
 type evaluator struct {
 	f       Value
-	m       int  // measurements per step
-	workers int  // ≥ 1
-	crn     bool // measurements 2i and 2i+1 share stream i
+	seeded  SeededValue // f as a SeededValue, or nil
+	m       int         // measurements per step
+	workers int         // ≥ 1
+	crn     bool        // measurements 2i and 2i+1 share stream i
 
 	// point writes the point of measurement j into dst (len dim); it is a
 	// function of the adapter that reads the call's state from e.
@@ -101,6 +103,7 @@ func newEvaluator(f Value, dim, m, workers int, crn bool) *evaluator {
 		e.scratch[w] = buf[w*dim : (w+1)*dim : (w+1)*dim]
 		e.rngs[w] = rand.New(&e.srcs[w])
 	}
+	e.seeded, _ = f.(SeededValue)
 	e.work = e.worker
 	return e
 }
@@ -175,14 +178,44 @@ func (e *evaluator) eval(w, j int) {
 	if e.crn {
 		id = uint64(j / 2)
 	}
-	e.srcs[w].Seed(seedPair(e.base, streamMeasurement+id))
+	s1, s2 := seedPair(e.base, streamMeasurement+id)
 	x := e.scratch[w]
 	e.point(e, x, j)
 	ctx := e.ctx
 	if ctx == nil {
 		ctx = context.Background()
 	}
+	if e.seeded != nil {
+		e.vals[j], e.errs[j] = measureSeeded(ctx, e.seeded, x, s1, s2)
+		return
+	}
+	e.srcs[w].Seed(s1, s2)
 	e.vals[j], e.errs[j] = measureOne(ctx, e.f, x, e.rngs[w])
+}
+
+// SeededValue is implemented by a [Value] that takes its measurement from
+// the seed of its random stream rather than from a *rand.Rand, such as a
+// measurement sent to another process (package oracle/remote).
+// [KieferWolfowitz] and [SPSA] call ValueSeeded, when the Value implements
+// it, in place of Value and ValueContext, with the run's context and the
+// PCG seed pair of the measurement's own stream. The stream the
+// measurement must draw from is rand.New(rand.NewPCG(seed1, seed2)): the
+// very stream the adapters would hand a local Value for that measurement,
+// so a SeededValue that recreates it and calls the same function gives
+// the same result bit for bit. A panic of ValueSeeded is recovered into a
+// [*PanicError] as for Value.
+type SeededValue interface {
+	ValueSeeded(ctx context.Context, x []float64, seed1, seed2 uint64) (float64, error)
+}
+
+// measureSeeded calls f.ValueSeeded and turns a panic into a *PanicError.
+func measureSeeded(ctx context.Context, f SeededValue, x []float64, s1, s2 uint64) (v float64, err error) {
+	defer func() {
+		if p := recover(); p != nil {
+			v, err = 0, &PanicError{Value: p, Stack: debug.Stack()}
+		}
+	}()
+	return f.ValueSeeded(ctx, x, s1, s2)
 }
 
 // Stream numbers below the step's base seed: the perturbation vectors and
