@@ -226,6 +226,15 @@ const (
 	streamMeasurement uint64 = 1
 )
 
+// MeasurementSeed returns the PCG seed pair of measurement j of a step
+// whose base seed is base: the stream the gradient-free adapters give
+// their measurement j (without common random numbers). Code that takes
+// several measurements of one call elsewhere (on other machines, say) uses
+// it to give each the stream a local adapter would.
+func MeasurementSeed(base uint64, j int) (uint64, uint64) {
+	return seedPair(base, streamMeasurement+uint64(j))
+}
+
 // seedPair derives the PCG seed of stream s of a step from the step's base
 // seed with the splitmix64 finaliser (Steele, Lea & Flood 2014,
 // "Fast splittable pseudorandom number generators", OOPSLA), so that

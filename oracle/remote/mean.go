@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"reflect"
 	"runtime/debug"
 	"sync"
 
@@ -17,9 +18,8 @@ import (
 // requests are in flight together, one per free worker slot.
 //
 // Each call draws one number from the run's stream; measurement j gets
-// the stream seeded by a splitmix64 derivation from it and j (the same
-// derivation the gradient-free adapters of package oracle use for their
-// measurements). The values are summed in the order j = 0, …, m−1,
+// the stream oracle.MeasurementSeed derives from it and j (the one the
+// gradient-free adapters of package oracle give their measurement j). The values are summed in the order j = 0, …, m−1,
 // whatever order they arrive in, so a Mean over a remote Field gives the
 // bits of a Mean over the same Field run locally. A Field that implements
 // [SeededField] is handed the seed pair; any other Field is called through
@@ -36,7 +36,7 @@ type Mean struct {
 // 1, m < 1, or m·dim values would need more than oracle.MaxScratchBytes.
 func NewMean(f oracle.Field, dim, m int) (*Mean, error) {
 	switch {
-	case f == nil:
+	case f == nil || isNilValue(f):
 		return nil, fmt.Errorf("%w: the Field of Mean is nil", oracle.ErrSettings)
 	case dim < 1:
 		return nil, fmt.Errorf("%w: Mean of dimension %d: must be ≥ 1", oracle.ErrSettings, dim)
@@ -64,7 +64,7 @@ func (a *Mean) MeasureContext(ctx context.Context, k int, dst, x []float64, rng 
 	var wg sync.WaitGroup
 	for j := range a.m {
 		wg.Go(func() {
-			s1, s2 := seedPair(base, streamMeasurement+uint64(j))
+			s1, s2 := oracle.MeasurementSeed(base, j)
 			errs[j] = a.one(ctx, k, vals[j*a.dim:(j+1)*a.dim], x, s1, s2)
 		})
 	}
@@ -121,28 +121,12 @@ func (a *Mean) Dim() int { return a.dim }
 // count every measurement.
 func (a *Mean) MeasurementsPerCall() int { return a.m }
 
-// streamMeasurement is the first stream number of the measurements below
-// a call's base seed (stream 0 is kept free, as in package oracle).
-const streamMeasurement uint64 = 1
-
-// seedPair derives the PCG seed of stream s from a base seed with the
-// splitmix64 finaliser (Steele, Lea & Flood 2014, "Fast splittable
-// pseudorandom number generators", OOPSLA): the derivation of package
-// oracle's gradient-free adapters.
-func seedPair(base, s uint64) (uint64, uint64) {
-	return mix64(base ^ mix64(s)), mix64(base + 0x9e3779b97f4a7c15*(s+1))
+// isNilValue reports whether v holds a nil pointer, function, map, slice
+// or channel (a typed nil), whose methods would panic far from the cause.
+func isNilValue(v any) bool {
+	switch r := reflect.ValueOf(v); r.Kind() {
+	case reflect.Pointer, reflect.Func, reflect.Map, reflect.Slice, reflect.Chan, reflect.Interface:
+		return r.IsNil()
+	}
+	return false
 }
-
-func mix64(z uint64) uint64 {
-	z += 0x9e3779b97f4a7c15
-	z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9
-	z = (z ^ (z >> 27)) * 0x94d049bb133111eb
-	return z ^ (z >> 31)
-}
-
-var (
-	_ oracle.ContextField = (*Mean)(nil)
-	_ oracle.Field        = (*Mean)(nil)
-	_ oracle.Dimensioned  = (*Mean)(nil)
-	_ oracle.Counted      = (*Mean)(nil)
-)

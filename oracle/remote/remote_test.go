@@ -434,6 +434,10 @@ func TestSettingsErrors(t *testing.T) {
 	_, cases["*nats.Conn"] = NewValue(nil, Settings{Subject: "a"})
 	_, cases["dimension"] = NewField(nc, 0, Settings{Subject: "a"})
 	_, cases["m ="] = NewMean(stepField(0), 1, 0)
+	_, cases["nil Field"] = NewMean(nil, 1, 1)
+	_, cases["nil Field (typed)"] = NewMean(oracle.FieldFunc(nil), 1, 1)
+	var nilField *Field
+	_, cases["nil Field (typed pointer)"] = NewMean(nilField, 1, 1)
 	_, cases["a Value or a Field"] = Serve(context.Background(), nc, WorkerSettings{Subject: "a"})
 	_, cases["Slots"] = Serve(context.Background(), nc, WorkerSettings{Subject: "a", Value: noisyBowl(0), Slots: -1})
 	_, cases["Queue"] = Serve(context.Background(), nc, WorkerSettings{Subject: "a", Queue: "q w", Value: noisyBowl(0)})
