@@ -32,6 +32,8 @@ type core struct {
 	steps   int // updates applied so far (k of the next step)
 	gainIdx int // index n passed to Gain; equals steps unless adaptive
 	gain    schedule.Schedule
+	pow     powerGains // incremental evaluation of a schedule.Power gain
+	usePow  bool
 	adapt   schedule.Adaptive // non-nil for adaptive schedules
 	prev    []float64         // previous measurement, adaptive only
 	hasPrev bool
@@ -82,6 +84,9 @@ func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, 
 	}
 	copy(c.x, x0)
 	c.member, _ = proj.(Membership)
+	if p, ok := gain.(schedule.Power); ok {
+		c.pow, c.usePow = newPowerGains(p), true
+	}
 	if a, ok := gain.(schedule.Adaptive); ok {
 		c.adapt = a
 		c.prev = make([]float64, d)
@@ -95,7 +100,7 @@ func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, 
 // caller's gain, projection or adaptive Advance panics, since all of them
 // run before the commit.
 func (c *core) step(y []float64) error {
-	a := c.gain.Gain(c.gainIdx)
+	a := c.gainOf(c.gainIdx)
 	if !(a >= 0) || math.IsInf(a, 1) {
 		return &StepError{Step: c.steps, Err: fmt.Errorf("%w: a_%d = %v", ErrGain, c.gainIdx, a)}
 	}
