@@ -82,6 +82,11 @@ func (c Constant) Validate() error {
 // Monro (1951). Offset (the "stability constant" A of Spall 1998) keeps the
 // first steps small without making the tail small. The conditions Σa_k = ∞
 // and Σa_k² < ∞ both hold exactly when 1/2 < Exponent ≤ 1, whatever Offset.
+//
+// The drivers of package sa do not call math.Pow at every step: for
+// consecutive k they multiply by the ratio a_{k+1}/a_k from short series,
+// restarting from Gain every 1024 steps, so the gain they use is a
+// function of k alone and within 5·10⁻¹³ (relative) of Gain(k).
 type Power struct {
 	Scale    float64 // a > 0
 	Offset   float64 // A ≥ 0
