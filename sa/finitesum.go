@@ -82,6 +82,7 @@ func MinimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Setti
 	defer g.Release()
 	g.Reset()
 	c := newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs)
+	c.trusted = true // a MiniBatch leaves x alone
 	rng := rand.New(rand.NewPCG(rs.Seed, streamSample))
 	y := make([]float64, d)
 	err = runPullWith(ctx, c, g, y, rng, g.MeasurementsPerCall(), &r, lim)

@@ -108,6 +108,7 @@ func NewSolver(h oracle.Field, x0 []float64, s Settings) (*Solver, error) {
 	}
 	sv.h = h
 	sv.c = newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs)
+	sv.c.trusted = leavesXAlone(h)
 	sv.c.configure(rs, sv.perCall) // error bars and trace also for Step
 	sv.rng = rand.New(rand.NewPCG(rs.Seed, streamMeasure))
 	sv.y = make([]float64, d)
