@@ -66,8 +66,9 @@ type BatchSettings struct {
 // chunks. The chunking depends only on the batch size and the dimension,
 // never on the number of workers, which is what makes the reduction the
 // same bit for bit for every worker count.
+const chunkWork = 1 << 14
+
 const (
-	chunkWork = 1 << 14
 	maxChunks = 64
 )
 
@@ -142,7 +143,6 @@ type batchShared struct {
 	size    int           // batch size
 	partial []float64     // chunks partial sums of d values, stride apart
 	stride  int           // d rounded up to whole cache lines, plus one line
-	scratch []float64     // chunks×rangeBlock scratch for rf
 	panics  []*PanicError // per chunk: the recovered panic of the current batch
 	next    atomic.Int64  // next chunk to claim
 	done    atomic.Int64  // chunks finished
@@ -205,9 +205,10 @@ func NewMiniBatch(f FiniteSum, s sampling.Sampler, size int, bs BatchSettings) (
 // writes the exact gradient (1/n) Σ ∇f_i(x), summed over i = 0, …, n−1 in a
 // fixed order (see the type documentation for the chunked order of large
 // batches). It draws no random numbers. For the ready-made models
-// ([Regression]) the samples of a chunk are summed block by block with
-// matrix–vector products from gonum's BLAS, the same sum in another
-// rounding order, and faster than one sample at a time.
+// ([Regression]) the samples of a chunk are summed by a fused kernel that
+// reads each row from memory once (its margin, then its contribution while
+// it is in cache), the same sum in another rounding order, and faster
+// than one AddGradient call at a time.
 func NewFullBatch(f FiniteSum, bs BatchSettings) (*MiniBatch, error) {
 	if isNil(f) {
 		return nil, fmt.Errorf("%w: finite sum is nil (%T)", ErrSettings, f)
@@ -256,9 +257,6 @@ func newBatch(f FiniteSum, size int, bs BatchSettings) (*MiniBatch, error) {
 	// Only the concrete model type takes the block path: a wrapper that
 	// embeds a *Regression and overrides AddGradient must not be bypassed.
 	sh.rf, _ = f.(*Regression)
-	if sh.rf != nil {
-		sh.scratch = make([]float64, chunks*rangeBlock)
-	}
 	if chunks > 1 {
 		// Partial sums sit whole cache lines apart so that two workers
 		// never write to the same line (false sharing).
@@ -269,15 +267,16 @@ func newBatch(f FiniteSum, size int, bs BatchSettings) (*MiniBatch, error) {
 }
 
 // chunkCount returns the number of chunks of a batch of size samples in
-// dimension d: 1 below 2·chunkWork multiply–adds, otherwise about one chunk
-// per chunkWork, at most maxChunks and at most size.
+// dimension d: the largest power of two c with c·chunkWork ≤ size·d,
+// at most maxChunks and at most size (1 below 2·chunkWork). A power of two
+// splits evenly between two workers.
 func chunkCount(size, d int) int {
 	work := float64(size) * float64(d)
-	if work < 2*chunkWork {
-		return 1
+	c := 1
+	for c < maxChunks && 2*c <= size && float64(2*c)*chunkWork <= work {
+		c *= 2
 	}
-	c := int(work / chunkWork)
-	return max(1, min(c, maxChunks, size))
+	return c
 }
 
 // chunkRange returns the batch positions [lo, hi) of chunk c.
@@ -291,12 +290,16 @@ func (sh *batchShared) accumulate(dst []float64, c, lo, hi int) {
 	f, x, w := sh.f, sh.x, sh.w
 	if sh.idx == nil {
 		if sh.rf != nil {
-			sh.rf.addRange(dst, x, lo, hi, w, sh.scratch[c*rangeBlock:(c+1)*rangeBlock])
+			sh.rf.addRange(dst, x, lo, hi, w)
 			return
 		}
 		for i := lo; i < hi; i++ {
 			f.AddGradient(dst, x, i, w)
 		}
+		return
+	}
+	if sh.rf != nil {
+		sh.rf.addIndexed(dst, x, sh.idx[lo:hi], w)
 		return
 	}
 	for _, i := range sh.idx[lo:hi] {
