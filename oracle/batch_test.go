@@ -76,8 +76,10 @@ func TestBatchZeroAllocations(t *testing.T) {
 	rng := rand.New(rand.NewPCG(1, 2))
 	for _, w := range []int{1, 2} {
 		for name, mk := range map[string]func() (*oracle.MiniBatch, error){
-			"full":         func() (*oracle.MiniBatch, error) { return oracle.NewFullBatch(m, oracle.BatchSettings{Workers: w}) },
-			"full-generic": func() (*oracle.MiniBatch, error) { return oracle.NewFullBatch(plain{m}, oracle.BatchSettings{Workers: w}) },
+			"full": func() (*oracle.MiniBatch, error) { return oracle.NewFullBatch(m, oracle.BatchSettings{Workers: w}) },
+			"full-generic": func() (*oracle.MiniBatch, error) {
+				return oracle.NewFullBatch(plain{m}, oracle.BatchSettings{Workers: w})
+			},
 			"uniform-64": func() (*oracle.MiniBatch, error) {
 				return oracle.NewMiniBatch(m, sampling.NewUniform(n), 64, oracle.BatchSettings{Workers: w})
 			},
