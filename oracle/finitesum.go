@@ -62,13 +62,23 @@ type BatchSettings struct {
 
 // Work per chunk of a batch, in multiply–adds (batch samples × dimension).
 // A batch with less work than 2·chunkWork is one chunk and is evaluated on
-// the calling goroutine; larger batches are split into at most maxChunks
-// chunks. The chunking depends only on the batch size and the dimension,
-// never on the number of workers, which is what makes the reduction the
-// same bit for bit for every worker count.
-const chunkWork = 1 << 14
-
+// the calling goroutine; larger batches are split into a power of two of
+// chunks (at most maxChunks), so that two workers get equal shares. The
+// chunking depends only on the batch size and the dimension, never on the
+// number of workers, which is what makes the reduction the same bit for
+// bit for every worker count.
+//
+// The threshold 2·chunkWork = 2^15 was kept after measuring chunkWork =
+// 2^10, 2^12 and 2^14 with BenchmarkMiniBatchWorkers at d = 100 and 1000,
+// m = 16…1024 (BENCHMARKS.md): on the shared 2-core
+// test machine, with other processes using both cores, every split made a
+// batch slower with 2 workers than with 1 (0.5–0.9×; the second goroutine's
+// thread is descheduled by the operating system while it holds a chunk),
+// and a lower threshold only split more batches. A lower threshold can only
+// be justified by measurements on idle cores; the benchmark reports the
+// ratio to decide.
 const (
+	chunkWork = 1 << 14
 	maxChunks = 64
 )
 
@@ -96,6 +106,14 @@ const (
 // they keep watching for the next one for 50µs before they sleep, so that
 // the batches of a descent loop reach them without an operating-system
 // wake-up; that watching uses CPU time.
+//
+// Caution: parallel batches pay off only on cores that are otherwise idle.
+// When the machine runs more busy threads than it has cores, a worker can
+// be descheduled while it holds a chunk, and the batch waits for it: two
+// workers were measured 10–50% slower than one on such a machine (see
+// BENCHMARKS.md). Measure before raising Workers above 1 on shared
+// machines, watch the time per batch, and keep Workers: 1 as the manual
+// fallback; the result does not depend on it.
 //
 // # Counting
 //

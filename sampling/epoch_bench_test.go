@@ -44,6 +44,9 @@ func BenchmarkEpoch(b *testing.B) {
 	b.Run(fmt.Sprintf("n=%d/d=%d/m=%d", n, d, m), func(b *testing.B) {
 		b.ReportAllocs()
 		ratios := make([][]float64, len(samplers))
+		for k := range ratios {
+			ratios[k] = make([]float64, 0, 1024)
+		}
 		times := make([]float64, len(samplers))
 		it := 0
 		for b.Loop() {
