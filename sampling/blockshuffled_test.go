@@ -184,22 +184,23 @@ func nextPerm(p []int) bool {
 	return true
 }
 
-// TestBlockShuffledBatchIsSetOfOrder: a Fill of m items writes the same set
-// of items as m Fills of one item with the same stream, each block's items
-// ascending (the documented presentation).
+// TestBlockShuffledBatchIsSetOfOrder: a Fill of m items smaller than a
+// block writes the same set of items as m Fills of one item with the same
+// stream, each block's items ascending (the documented presentation).
 func TestBlockShuffledBatchIsSetOfOrder(t *testing.T) {
-	for _, m := range []int{2, 7, 64, 100} {
-		const n, blk = 1000, 64
+	for _, m := range []int{2, 7, 63} {
+		const n, blk = 1024, 64
 		s1, sm := sampling.NewBlockShuffled(n, blk), sampling.NewBlockShuffled(n, blk)
 		r1, rm := rand.New(rand.NewPCG(5, 6)), rand.New(rand.NewPCG(5, 6))
 		one, batch := make([]int, m), make([]int, m)
-		for range 3 * n / m {
+		for c := range 3 * n / m {
 			for k := range one {
 				s1.Fill(one[k:k+1], r1)
 			}
 			sm.Fill(batch, rm)
 			for k := 1; k < m; k++ {
-				if batch[k]/blk == batch[k-1]/blk && batch[k] <= batch[k-1] {
+				newEpoch := (c*m+k)%n == 0 // a block may be visited again at once
+				if !newEpoch && batch[k]/blk == batch[k-1]/blk && batch[k] <= batch[k-1] {
 					t.Fatalf("m %d: items %d, %d of one block not ascending", m, batch[k-1], batch[k])
 				}
 			}
@@ -207,6 +208,61 @@ func TestBlockShuffledBatchIsSetOfOrder(t *testing.T) {
 		}
 		require.Equal(t, s1.Epoch(), sm.Epoch())
 	}
+}
+
+// TestReferenceBlockShuffledWholeBlocks checks the path where each call
+// takes whole blocks (the inner order is not drawn): every call of b items
+// is one block, ascending, and the block order of an epoch is uniform over
+// the 3! = 6 orders of B = 3 blocks, by Pearson's chi-square test (Pearson
+// 1900) at level 0.001 with gonum's distuv.ChiSquared critical value, over
+// independent epochs. Calls of 6 items (a block and a half) check that the
+// mixed path still hands out every item once per epoch.
+func TestReferenceBlockShuffledWholeBlocks(t *testing.T) {
+	const n, b, epochs = 12, 4, 60000
+	s := sampling.NewBlockShuffled(n, b)
+	rng := rand.New(rand.NewPCG(77, 1))
+	counts := make([]float64, 6)
+	call := make([]int, b)
+	order := make([]int, 3)
+	for range epochs {
+		for k := range 3 {
+			s.Fill(call, rng)
+			lo := call[0]
+			require.Zero(t, lo%b, "a call of b items starts a block")
+			for j, v := range call {
+				require.Equal(t, lo+j, v, "a whole block goes out ascending")
+			}
+			order[k] = lo / b
+		}
+		counts[permIndex(order)]++
+	}
+	require.Equal(t, epochs, s.Epoch())
+	e := float64(epochs) / 6
+	chi := 0.0
+	for _, o := range counts {
+		chi += (o - e) * (o - e) / e
+	}
+	crit := distuv.ChiSquared{K: 5}.Quantile(0.999)
+	t.Logf("block order: χ² = %.1f on 6 cells, critical value at 0.001 = %.1f", chi, crit)
+	require.Less(t, chi, crit)
+
+	s = sampling.NewBlockShuffled(n, b)
+	var stream []int
+	call = make([]int, 6)
+	for len(stream) < 50*n {
+		s.Fill(call, rng)
+		stream = append(stream, call...)
+	}
+	for e := range 50 {
+		seen := make([]int, n)
+		for _, i := range stream[e*n : (e+1)*n] {
+			seen[i]++
+		}
+		for i, c := range seen {
+			require.Equal(t, 1, c, "epoch %d: item %d seen %d times", e, i, c)
+		}
+	}
+	require.Equal(t, 50, s.Epoch())
 }
 
 func TestBlockShuffledZeroAllocations(t *testing.T) {

@@ -256,19 +256,28 @@ func (s *Shuffled) Reset() {
 // distribution; b ≥ n is one block, which is also a uniform permutation.
 //
 // Fill hands out the order in its sequence, with one difference of
-// presentation: the items that one call writes and that come from the same
-// block are written in ascending order (so that their rows are read in
+// presentation: the items that one call writes from one visit of a block
+// (a block can be visited twice in one call, at the end of an epoch and at
+// the start of the next) are written in ascending order (so that their rows are read in
 // storage order, which the memory prefetcher follows). Which items a call
 // writes, the batch as a set, is exactly as in the order described above;
 // only their order within the call differs, which does not change a batch
 // mean (up to rounding). With batches of one item (plain SGD) the items
-// come in the random order itself.
+// come in the random order itself. When a call takes a whole block from
+// its first item, the order inside that block could not change the call's
+// set and is not drawn (the items go out ascending): this saves one random
+// draw per item for batches of whole blocks. The random stream then
+// advances differently than with smaller calls, but every order that is
+// drawn is still a fresh uniform draw, so the distribution of the batches
+// is the one stated; the sequence is reproducible from the seed and the
+// batch sizes.
 //
 // A batch that crosses an epoch boundary is filled as by Shuffled: the rest
 // of the current epoch, then the first items of the next.
 //
 // The memory cost is ⌈n/b⌉ + b ints and ⌈b/64⌉ words; the random cost is
-// one bounded draw per item and one per block.
+// one bounded draw per block and one per item of the blocks that calls take
+// in parts.
 type BlockShuffled struct {
 	n, b   int
 	blocks []int    // the block order of the current epoch
@@ -312,7 +321,22 @@ func (s *BlockShuffled) Fill(dst []int, rng *rand.Rand) {
 	}
 	for i := 0; i < len(dst); {
 		if s.ipos == len(s.cur) {
-			s.nextBlock(rng)
+			lo, size := s.enterBlock(rng)
+			if size <= len(dst)-i {
+				// The call takes the whole block: its set does not
+				// depend on the order inside the block, which is not
+				// drawn; the items go out ascending.
+				for k := range size {
+					dst[i+k] = lo + k
+				}
+				s.cur, s.ipos = s.buf[:size], size
+				i += size
+				if s.bpos == len(s.blocks) {
+					s.epoch++
+				}
+				continue
+			}
+			s.shuffleBlock(lo, size, rng)
 		}
 		k := copy(dst[i:], s.cur[s.ipos:])
 		s.ascending(dst[i : i+k])
@@ -348,9 +372,10 @@ func (s *BlockShuffled) ascending(seg []int) {
 	}
 }
 
-// nextBlock enters the next block of the epoch, drawing a new block order
-// first when the epoch is over, and shuffles the block's items.
-func (s *BlockShuffled) nextBlock(rng *rand.Rand) {
+// enterBlock moves to the next block of the epoch, drawing a new block
+// order first when the epoch is over, and returns the block's first item
+// and size.
+func (s *BlockShuffled) enterBlock(rng *rand.Rand) (lo, size int) {
 	if s.fresh || s.bpos == len(s.blocks) {
 		o := s.blocks
 		for i := len(o) - 1; i > 0; i-- {
@@ -359,9 +384,14 @@ func (s *BlockShuffled) nextBlock(rng *rand.Rand) {
 		}
 		s.bpos, s.fresh = 0, false
 	}
-	lo := s.blocks[s.bpos] * s.b
+	lo = s.blocks[s.bpos] * s.b
 	s.bpos++
-	c := s.buf[:min(s.b, s.n-lo)]
+	return lo, min(s.b, s.n-lo)
+}
+
+// shuffleBlock draws the order inside the block of size items from lo.
+func (s *BlockShuffled) shuffleBlock(lo, size int, rng *rand.Rand) {
+	c := s.buf[:size]
 	for k := range c {
 		c[k] = lo + k
 	}
