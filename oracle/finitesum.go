@@ -165,6 +165,10 @@ type batchShared struct {
 	next    atomic.Int64  // next chunk to claim
 	done    atomic.Int64  // chunks finished
 	gen     atomic.Uint64 // parallel batches started; spinning workers watch it
+	waiting atomic.Bool   // the calling goroutine sleeps on finished
+	// finished receives a token when the last chunk of a batch is done
+	// while the calling goroutine sleeps (see waitDone).
+	finished chan struct{}
 
 	// The current job, written by the calling goroutine before the workers
 	// are woken.
@@ -271,7 +275,7 @@ func newBatch(f FiniteSum, size int, bs BatchSettings) (*MiniBatch, error) {
 	}
 	n, d := f.Len(), f.Dim()
 	chunks := chunkCount(size, d)
-	sh := &batchShared{f: f, d: d, chunks: chunks, size: size, panics: make([]*PanicError, chunks)}
+	sh := &batchShared{f: f, d: d, chunks: chunks, size: size, panics: make([]*PanicError, chunks), finished: make(chan struct{}, 1)}
 	// Only the concrete model type takes the block path: a wrapper that
 	// embeds a *Regression and overrides AddGradient must not be bypassed.
 	sh.rf, _ = f.(*Regression)
@@ -337,7 +341,12 @@ func (sh *batchShared) work() {
 		clear(p)
 		lo, hi := sh.chunkRange(c)
 		sh.safeAccumulate(p, c, lo, hi)
-		sh.done.Add(1)
+		if sh.done.Add(1) == int64(sh.chunks) && sh.waiting.Load() {
+			select { // wake the calling goroutine if it sleeps
+			case sh.finished <- struct{}{}:
+			default:
+			}
+		}
 	}
 }
 
@@ -365,6 +374,32 @@ func (sh *batchShared) firstPanic() error {
 		}
 	}
 	return first
+}
+
+// waitSpin is how long the calling goroutine, its own chunks done, checks
+// for the chunks that workers hold before it sleeps until the last one is
+// finished. Spinning longer would take processor time from a worker that
+// shares the core (on a machine with more busy threads than cores, the
+// worker may be waiting for that very core).
+const waitSpin = 20 * time.Microsecond
+
+// waitDone returns when every chunk of the batch is done: it checks for
+// up to waitSpin, then sleeps on finished. A token left over from an
+// earlier batch only makes it check again.
+func (sh *batchShared) waitDone() {
+	all := int64(sh.chunks)
+	start := time.Now()
+	for i := 0; sh.done.Load() < all; i++ {
+		if i%64 == 63 && time.Since(start) > waitSpin {
+			sh.waiting.Store(true)
+			for sh.done.Load() < all {
+				<-sh.finished
+			}
+			sh.waiting.Store(false)
+			return
+		}
+		runtime.Gosched()
+	}
 }
 
 // spinWait is how long a worker keeps checking for the next batch after
@@ -462,9 +497,7 @@ func (b *MiniBatch) Measure(dst, x []float64, rng *rand.Rand) error {
 	// workers have claimed and not finished (never for a worker that has
 	// not woken up yet).
 	sh.work()
-	for sh.done.Load() < int64(sh.chunks) {
-		runtime.Gosched()
-	}
+	sh.waitDone()
 	// Reduce in chunk order: the same sums in the same order for every
 	// worker count.
 	d := b.d
