@@ -62,10 +62,21 @@ type BatchSettings struct {
 
 // Work per chunk of a batch, in multiply–adds (batch samples × dimension).
 // A batch with less work than 2·chunkWork is one chunk and is evaluated on
-// the calling goroutine; larger batches are split into at most maxChunks
-// chunks. The chunking depends only on the batch size and the dimension,
-// never on the number of workers, which is what makes the reduction the
-// same bit for bit for every worker count.
+// the calling goroutine; larger batches are split into a power of two of
+// chunks (at most maxChunks), so that two workers get equal shares. The
+// chunking depends only on the batch size and the dimension, never on the
+// number of workers, which is what makes the reduction the same bit for
+// bit for every worker count.
+//
+// The threshold 2·chunkWork = 2^15 was kept after measuring chunkWork =
+// 2^10, 2^12 and 2^14 with BenchmarkMiniBatchWorkers at d = 100 and 1000,
+// m = 16…1024 (BENCHMARKS.md): on the shared 2-core
+// test machine, with other processes using both cores, every split made a
+// batch slower with 2 workers than with 1 (0.5–0.9×; the second goroutine's
+// thread is descheduled by the operating system while it holds a chunk),
+// and a lower threshold only split more batches. A lower threshold can only
+// be justified by measurements on idle cores; the benchmark reports the
+// ratio to decide.
 const (
 	chunkWork = 1 << 14
 	maxChunks = 64
@@ -95,6 +106,14 @@ const (
 // they keep watching for the next one for 50µs before they sleep, so that
 // the batches of a descent loop reach them without an operating-system
 // wake-up; that watching uses CPU time.
+//
+// Caution: parallel batches pay off only on cores that are otherwise idle.
+// When the machine runs more busy threads than it has cores, a worker can
+// be descheduled while it holds a chunk, and the batch waits for it: two
+// workers were measured 10–50% slower than one on such a machine (see
+// BENCHMARKS.md). Measure before raising Workers above 1 on shared
+// machines, watch the time per batch, and keep Workers: 1 as the manual
+// fallback; the result does not depend on it.
 //
 // # Counting
 //
@@ -142,11 +161,14 @@ type batchShared struct {
 	size    int           // batch size
 	partial []float64     // chunks partial sums of d values, stride apart
 	stride  int           // d rounded up to whole cache lines, plus one line
-	scratch []float64     // chunks×rangeBlock scratch for rf
 	panics  []*PanicError // per chunk: the recovered panic of the current batch
 	next    atomic.Int64  // next chunk to claim
 	done    atomic.Int64  // chunks finished
 	gen     atomic.Uint64 // parallel batches started; spinning workers watch it
+	waiting atomic.Bool   // the calling goroutine sleeps on finished
+	// finished receives a token when the last chunk of a batch is done
+	// while the calling goroutine sleeps (see waitDone).
+	finished chan struct{}
 
 	// The current job, written by the calling goroutine before the workers
 	// are woken.
@@ -205,9 +227,10 @@ func NewMiniBatch(f FiniteSum, s sampling.Sampler, size int, bs BatchSettings) (
 // writes the exact gradient (1/n) Σ ∇f_i(x), summed over i = 0, …, n−1 in a
 // fixed order (see the type documentation for the chunked order of large
 // batches). It draws no random numbers. For the ready-made models
-// ([Regression]) the samples of a chunk are summed block by block with
-// matrix–vector products from gonum's BLAS, the same sum in another
-// rounding order, and faster than one sample at a time.
+// ([Regression]) the samples of a chunk are summed by a fused kernel that
+// reads each row from memory once (its margin, then its contribution while
+// it is in cache), the same sum in another rounding order, and faster
+// than one AddGradient call at a time.
 func NewFullBatch(f FiniteSum, bs BatchSettings) (*MiniBatch, error) {
 	if isNil(f) {
 		return nil, fmt.Errorf("%w: finite sum is nil (%T)", ErrSettings, f)
@@ -252,13 +275,10 @@ func newBatch(f FiniteSum, size int, bs BatchSettings) (*MiniBatch, error) {
 	}
 	n, d := f.Len(), f.Dim()
 	chunks := chunkCount(size, d)
-	sh := &batchShared{f: f, d: d, chunks: chunks, size: size, panics: make([]*PanicError, chunks)}
+	sh := &batchShared{f: f, d: d, chunks: chunks, size: size, panics: make([]*PanicError, chunks), finished: make(chan struct{}, 1)}
 	// Only the concrete model type takes the block path: a wrapper that
 	// embeds a *Regression and overrides AddGradient must not be bypassed.
 	sh.rf, _ = f.(*Regression)
-	if sh.rf != nil {
-		sh.scratch = make([]float64, chunks*rangeBlock)
-	}
 	if chunks > 1 {
 		// Partial sums sit whole cache lines apart so that two workers
 		// never write to the same line (false sharing).
@@ -269,15 +289,16 @@ func newBatch(f FiniteSum, size int, bs BatchSettings) (*MiniBatch, error) {
 }
 
 // chunkCount returns the number of chunks of a batch of size samples in
-// dimension d: 1 below 2·chunkWork multiply–adds, otherwise about one chunk
-// per chunkWork, at most maxChunks and at most size.
+// dimension d: the largest power of two c with c·chunkWork ≤ size·d,
+// at most maxChunks and at most size (1 below 2·chunkWork). A power of two
+// splits evenly between two workers.
 func chunkCount(size, d int) int {
 	work := float64(size) * float64(d)
-	if work < 2*chunkWork {
-		return 1
+	c := 1
+	for c < maxChunks && 2*c <= size && float64(2*c)*chunkWork <= work {
+		c *= 2
 	}
-	c := int(work / chunkWork)
-	return max(1, min(c, maxChunks, size))
+	return c
 }
 
 // chunkRange returns the batch positions [lo, hi) of chunk c.
@@ -291,12 +312,16 @@ func (sh *batchShared) accumulate(dst []float64, c, lo, hi int) {
 	f, x, w := sh.f, sh.x, sh.w
 	if sh.idx == nil {
 		if sh.rf != nil {
-			sh.rf.addRange(dst, x, lo, hi, w, sh.scratch[c*rangeBlock:(c+1)*rangeBlock])
+			sh.rf.addRange(dst, x, lo, hi, w)
 			return
 		}
 		for i := lo; i < hi; i++ {
 			f.AddGradient(dst, x, i, w)
 		}
+		return
+	}
+	if sh.rf != nil {
+		sh.rf.addIndexed(dst, x, sh.idx[lo:hi], w)
 		return
 	}
 	for _, i := range sh.idx[lo:hi] {
@@ -316,7 +341,12 @@ func (sh *batchShared) work() {
 		clear(p)
 		lo, hi := sh.chunkRange(c)
 		sh.safeAccumulate(p, c, lo, hi)
-		sh.done.Add(1)
+		if sh.done.Add(1) == int64(sh.chunks) && sh.waiting.Load() {
+			select { // wake the calling goroutine if it sleeps
+			case sh.finished <- struct{}{}:
+			default:
+			}
+		}
 	}
 }
 
@@ -344,6 +374,32 @@ func (sh *batchShared) firstPanic() error {
 		}
 	}
 	return first
+}
+
+// waitSpin is how long the calling goroutine, its own chunks done, checks
+// for the chunks that workers hold before it sleeps until the last one is
+// finished. Spinning longer would take processor time from a worker that
+// shares the core (on a machine with more busy threads than cores, the
+// worker may be waiting for that very core).
+const waitSpin = 20 * time.Microsecond
+
+// waitDone returns when every chunk of the batch is done: it checks for
+// up to waitSpin, then sleeps on finished. A token left over from an
+// earlier batch only makes it check again.
+func (sh *batchShared) waitDone() {
+	all := int64(sh.chunks)
+	start := time.Now()
+	for i := 0; sh.done.Load() < all; i++ {
+		if i%64 == 63 && time.Since(start) > waitSpin {
+			sh.waiting.Store(true)
+			for sh.done.Load() < all {
+				<-sh.finished
+			}
+			sh.waiting.Store(false)
+			return
+		}
+		runtime.Gosched()
+	}
 }
 
 // spinWait is how long a worker keeps checking for the next batch after
@@ -441,9 +497,7 @@ func (b *MiniBatch) Measure(dst, x []float64, rng *rand.Rand) error {
 	// workers have claimed and not finished (never for a worker that has
 	// not woken up yet).
 	sh.work()
-	for sh.done.Load() < int64(sh.chunks) {
-		runtime.Gosched()
-	}
+	sh.waitDone()
 	// Reduce in chunk order: the same sums in the same order for every
 	// worker count.
 	d := b.d

@@ -4,8 +4,6 @@ import (
 	"fmt"
 	"math"
 
-	"gonum.org/v1/gonum/blas"
-	"gonum.org/v1/gonum/blas/gonum"
 	"gonum.org/v1/gonum/floats"
 )
 
@@ -367,23 +365,24 @@ func (r *Regression) AddGradient(dst, x []float64, i int, w float64) {
 	}
 }
 
-// rangeBlock is the largest number of rows addRange handles per
-// matrix–vector product; rangeBlockBytes bounds the block so that its
-// second read (for the transposed product) comes from cache.
-const (
-	rangeBlock      = 64
-	rangeBlockBytes = 1 << 15
-)
+// fusedDotMin is the row width from which the fused kernel of addRange
+// calls gonum's assembly dot and axpy kernels per row; narrower rows use
+// fusedSquaredNarrow, a Go loop over pairs of rows without calls. Measured
+// side by side on rows in cache (2-core AMD EPYC, Go 1.26): the Go loop is
+// 1.5–1.9× faster at 8 columns and 1.08× at 16; the assembly kernels are
+// 1.2× faster at 32 and 1.5–2× at 64–128.
+const fusedDotMin = 24
 
 // addRange adds w·Σ_{i=lo}^{hi−1} ∇f_i(x) into dst, the same sum as
-// calling AddGradient for i = lo, …, hi−1, computed block by block with two
-// matrix–vector products (margins z = A_B·β + b₀, then
-// dst += A_Bᵀ·(w·ℓ'(z))) using gonum's BLAS kernels; the result may differ
-// from the one-at-a-time sum in the last bits (summation order). scratch
-// must hold rangeBlock values. The full-batch oracle uses it for a
+// calling AddGradient for i = lo, …, hi−1, in one fused pass over each row:
+// its margin z_i (a dot product), then dst += w·ℓ'(z_i)·a_i (an axpy)
+// while the row is still in the first-level cache, so the data are read
+// from memory once, as a stream. The intercept part is summed separately
+// and added once; the result may differ from the one-at-a-time sum in the
+// last bits (summation order). The full-batch oracle uses it for a
 // *Regression. It allocates nothing and is safe for concurrent use with
-// different dst and scratch.
-func (r *Regression) addRange(dst, x []float64, lo, hi int, w float64, scratch []float64) {
+// different dst.
+func (r *Regression) addRange(dst, x []float64, lo, hi int, w float64) {
 	if len(x) != r.p+r.off || len(dst) != len(x) {
 		panic("oracle: Regression length mismatch")
 	}
@@ -392,41 +391,200 @@ func (r *Regression) addRange(dst, x []float64, lo, hi int, w float64, scratch [
 	}
 	p, off := r.p, r.off
 	beta, g := x[off:], dst[off:]
-	blk := max(1, min(rangeBlock, rangeBlockBytes/(8*p)))
-	buf := scratch[:rangeBlock]
-	var impl gonum.Implementation
-	for b := lo; b < hi; b += blk {
-		rows := min(blk, hi-b)
-		a := r.a[b*p : (b+rows)*p]
-		z := buf[:rows]
-		impl.Dgemv(blas.NoTrans, rows, p, 1, a, p, beta, 1, 0, z, 1)
-		b0 := 0.0
-		if off == 1 {
-			b0 = x[0]
+	b0 := 0.0
+	if off == 1 {
+		b0 = x[0]
+	}
+	a, y := r.a[lo*p:hi*p], r.y[lo:hi]
+	var sum float64
+	switch {
+	case r.loss != SquaredLoss:
+		for k := range y {
+			row := a[k*p : (k+1)*p]
+			v := w * r.dLoss(floats.Dot(row, beta)+b0, lo+k)
+			sum += v
+			floats.AddScaled(g, v, row)
 		}
-		yb := r.y[b : b+rows]
-		sum := 0.0
-		if r.loss == SquaredLoss { // the common case, without a call per row
-			for k, zk := range z {
-				v := w * (zk + b0 - yb[k])
-				z[k] = v
-				sum += v
-			}
-		} else {
-			for k, zk := range z {
-				v := w * r.dLoss(zk+b0, b+k)
-				z[k] = v
-				sum += v
-			}
+	case p >= fusedDotMin:
+		for k, yk := range y {
+			row := a[k*p : (k+1)*p]
+			v := w * (floats.Dot(row, beta) + b0 - yk)
+			sum += v
+			floats.AddScaled(g, v, row)
 		}
-		if off == 1 {
-			dst[0] += sum
-		}
-		impl.Dgemv(blas.Trans, rows, p, 1, a, p, z, 1, 1, g, 1)
+	case p == 8:
+		sum = fusedSquared8(g, beta, a, y, b0, w)
+	default:
+		sum = fusedSquaredNarrow(g, beta, a, y, b0, w)
+	}
+	if off == 1 {
+		dst[0] += sum
 	}
 	if r.l2 != 0 {
 		floats.AddScaled(g, float64(hi-lo)*w*r.l2, beta)
 	}
+}
+
+// addIndexed adds w·Σ_{i∈idx} ∇f_i(x) into dst, the same sum as calling
+// AddGradient for each i of idx in turn (up to rounding: the intercept part
+// and the penalty are added once). Before the sum it reads one value of
+// every cache line of the batch's rows and targets in a tight loop, whose
+// loads do not depend on each other, so the processor fetches the rows of
+// randomly drawn samples from memory in parallel instead of one or two at
+// a time behind the arithmetic; it then makes one fused pass per row. The
+// mini-batch oracle uses it for a *Regression. It panics, naming the
+// index, if an index is out of range. It allocates nothing and is safe for
+// concurrent use with different dst.
+func (r *Regression) addIndexed(dst, x []float64, idx []int, w float64) {
+	if len(x) != r.p+r.off || len(dst) != len(x) {
+		panic("oracle: Regression length mismatch")
+	}
+	p, off := r.p, r.off
+	var t float64
+	for _, i := range idx {
+		if i < 0 || i >= r.n {
+			panic(fmt.Sprintf("oracle: Regression sample index %d out of range [0, %d)", i, r.n))
+		}
+		row := r.a[i*p : (i+1)*p]
+		for j := 0; j < len(row); j += 8 {
+			t += row[j]
+		}
+		t += row[len(row)-1] + r.y[i]
+	}
+	if t != t { // never: the data are finite; keeps the loads live
+		panic("oracle: Regression data not finite")
+	}
+	beta, g := x[off:], dst[off:]
+	b0 := 0.0
+	if off == 1 {
+		b0 = x[0]
+	}
+	var sum float64
+	for _, i := range idx {
+		row := r.a[i*p : (i+1)*p]
+		var z float64
+		if p < fusedDotMin {
+			bt := beta[:len(row)]
+			var s0, s1 float64
+			j := 0
+			for ; j+2 <= len(row); j += 2 {
+				s0 += row[j] * bt[j]
+				s1 += row[j+1] * bt[j+1]
+			}
+			if j < len(row) {
+				s0 += row[j] * bt[j]
+			}
+			z = s0 + s1 + b0
+		} else {
+			z = floats.Dot(row, beta) + b0
+		}
+		var v float64
+		if r.loss == SquaredLoss {
+			v = w * (z - r.y[i])
+		} else {
+			v = w * r.dLoss(z, i)
+		}
+		sum += v
+		if p < fusedDotMin {
+			gg := g[:len(row)]
+			for j, aj := range row {
+				gg[j] += v * aj
+			}
+		} else {
+			floats.AddScaled(g, v, row)
+		}
+	}
+	if off == 1 {
+		dst[0] += sum
+	}
+	if r.l2 != 0 {
+		floats.AddScaled(g, float64(len(idx))*w*r.l2, beta)
+	}
+}
+
+// fusedSquared8 is fusedSquaredNarrow for rows of exactly 8 values, a
+// width common enough to deserve its own loop: the gradient accumulates in
+// eight local variables (registers) instead of memory, and is added into g
+// once at the end.
+func fusedSquared8(g, beta, a, y []float64, b0, w float64) float64 {
+	g, beta = g[:8], beta[:8]
+	c0, c1, c2, c3, c4, c5, c6, c7 := beta[0], beta[1], beta[2], beta[3], beta[4], beta[5], beta[6], beta[7]
+	var g0, g1, g2, g3, g4, g5, g6, g7, sum float64
+	for k, yk := range y {
+		r := a[8*k : 8*k+8 : 8*k+8]
+		z := ((r[0]*c0 + r[1]*c1) + (r[2]*c2 + r[3]*c3)) + ((r[4]*c4 + r[5]*c5) + (r[6]*c6 + r[7]*c7))
+		v := w * (z + b0 - yk)
+		sum += v
+		g0 += v * r[0]
+		g1 += v * r[1]
+		g2 += v * r[2]
+		g3 += v * r[3]
+		g4 += v * r[4]
+		g5 += v * r[5]
+		g6 += v * r[6]
+		g7 += v * r[7]
+	}
+	g[0] += g0
+	g[1] += g1
+	g[2] += g2
+	g[3] += g3
+	g[4] += g4
+	g[5] += g5
+	g[6] += g6
+	g[7] += g7
+	return sum
+}
+
+// fusedSquaredNarrow is the least-squares kernel of addRange for narrow
+// rows, without calls: for each row a_k of a (len(beta) wide), v_k =
+// w·(a_k·β + b0 − y_k) and g += v_k·a_k. It returns Σ v_k. Rows are taken
+// two at a time, so that g is loaded and stored once per pair and the two
+// dot products overlap.
+func fusedSquaredNarrow(g, beta, a, y []float64, b0, w float64) float64 {
+	p := len(beta)
+	g = g[:p]
+	var sum float64
+	k := 0
+	for ; k+2 <= len(y); k += 2 {
+		r0 := a[k*p : (k+1)*p : (k+1)*p]
+		r1 := a[(k+1)*p : (k+2)*p : (k+2)*p]
+		r1 = r1[:len(r0)]
+		bt := beta[:len(r0)]
+		var s0, s1, t0, t1 float64
+		j := 0
+		for ; j+2 <= len(r0); j += 2 {
+			s0 += r0[j] * bt[j]
+			s1 += r0[j+1] * bt[j+1]
+			t0 += r1[j] * bt[j]
+			t1 += r1[j+1] * bt[j+1]
+		}
+		if j < len(r0) {
+			s0 += r0[j] * bt[j]
+			t0 += r1[j] * bt[j]
+		}
+		v0 := w * (s0 + s1 + b0 - y[k])
+		v1 := w * (t0 + t1 + b0 - y[k+1])
+		sum += v0 + v1
+		gg := g[:len(r0)]
+		for j, aj := range r0 {
+			gg[j] += v0*aj + v1*r1[j]
+		}
+	}
+	if k < len(y) {
+		row := a[k*p : (k+1)*p : (k+1)*p]
+		bt := beta[:len(row)]
+		var s0 float64
+		for j, aj := range row {
+			s0 += aj * bt[j]
+		}
+		v := w * (s0 + b0 - y[k])
+		sum += v
+		gg := g[:len(row)]
+		for j, aj := range row {
+			gg[j] += v * aj
+		}
+	}
+	return sum
 }
 
 // Value returns the objective f(x) = (1/n) Σ f_i(x), penalty included,
