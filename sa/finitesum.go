@@ -81,11 +81,29 @@ func MinimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Setti
 	}
 	defer g.Release()
 	g.Reset()
+	if rs.Gain == nil {
+		cal, err := calibrateSum(ctx, g, x0, rs, lim.epochMeasurements)
+		r.Calibration = cal
+		if cal != nil {
+			r.Measurements = cal.PilotMeasurements
+			lim.pilotSteps = cal.PilotCalls
+		}
+		if err != nil {
+			r.Reason = Failed
+			r.Epochs = float64(r.Measurements) / float64(n)
+			return r, err
+		}
+		if rs, err = withGain(s, cal.Gain, d); err != nil {
+			return r, err
+		}
+		r.Settings = rs
+	}
 	c := newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs)
 	rng := rand.New(rand.NewPCG(rs.Seed, streamSample))
 	y := make([]float64, d)
 	err = runPullWith(ctx, c, g, y, rng, g.MeasurementsPerCall(), &r, lim)
 	c.fill(&r)
+	noteAverage(&r)
 	r.Epochs = float64(r.Measurements) / float64(n)
 	return r, err
 }

@@ -1,0 +1,81 @@
+package oracle
+
+import (
+	"math"
+
+	"gonum.org/v1/gonum/floats"
+)
+
+// curvatureIters is the number of power iterations of CurvatureBounds.
+const curvatureIters = 30
+
+// CurvatureBounds returns two measures of the curvature of the model that
+// set the step sizes of gradient methods (Bach & Moulines 2013, "Non-
+// strongly-convex smooth stochastic approximation with convergence rate
+// O(1/n)", NeurIPS, where R² bounds ‖x_n‖²):
+//
+//   - r2 = c·max_i ‖ã_i‖² + L2, the largest curvature of one sample loss,
+//     with ã_i = (1, a_i) (or a_i without an intercept) and c the loss's
+//     largest second derivative (1 squared, ¼ logistic);
+//   - top, the largest eigenvalue of c·(1/n)·Σ ã_i ã_iᵀ + L2·I (penalty on
+//     the coefficients only), the largest curvature of the mean loss
+//     (exact for least squares, an upper bound for logistic regression),
+//     by a fixed number of power iterations from the all-ones vector (so
+//     possibly a little below the true value; Golub & Van Loan 2013,
+//     Matrix Computations, 4th ed., §8.3.1).
+//
+// ok is false for the pinball loss, whose curvature is not bounded. The
+// values are those of the model's own (possibly standardised) columns.
+// It reads the data 1 + curvatureIters times and allocates O(Dim()).
+func (r *Regression) CurvatureBounds() (r2, top float64, ok bool) {
+	c := 1.0
+	switch r.loss {
+	case SquaredLoss:
+	case LogisticLoss:
+		c = 0.25
+	default:
+		return 0, 0, false
+	}
+	n, p, off := r.n, r.p, r.off
+	for i := range n {
+		row := r.a[i*p : (i+1)*p]
+		r2 = math.Max(r2, floats.Dot(row, row)+float64(off))
+	}
+	r2 = c*r2 + r.l2
+	d := p + off
+	v := make([]float64, d)
+	w := make([]float64, d)
+	for i := range v {
+		v[i] = 1 / math.Sqrt(float64(d))
+	}
+	mul := func(dst, v []float64) {
+		clear(dst)
+		for i := range n {
+			row := r.a[i*p : (i+1)*p]
+			z := floats.Dot(row, v[off:])
+			if off == 1 {
+				z += v[0]
+				dst[0] += z
+			}
+			floats.AddScaled(dst[off:], z, row)
+		}
+		floats.Scale(c/float64(n), dst)
+		if r.l2 != 0 {
+			floats.AddScaled(dst[off:], r.l2, v[off:])
+		}
+	}
+	for range curvatureIters {
+		mul(w, v)
+		top = floats.Dot(w, v) // Rayleigh quotient, ‖v‖ = 1
+		nw := floats.Norm(w, 2)
+		if !(nw > 0) {
+			break
+		}
+		floats.ScaleTo(v, 1/nw, w)
+	}
+	return r2, top, true
+}
+
+// Sum returns the finite sum the batches are drawn from (so that a driver
+// can read a ready-made model's data, for example its CurvatureBounds).
+func (b *MiniBatch) Sum() FiniteSum { return b.f }

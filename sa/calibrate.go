@@ -1,0 +1,307 @@
+package sa
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"math/rand/v2"
+
+	"github.com/stochroot/stochroot/oracle"
+	"github.com/stochroot/stochroot/schedule"
+)
+
+// streamCalibrate is the random stream of the calibration pilot: its
+// directions and the oracle's measurements during the pilot.
+const streamCalibrate uint64 = 0x5eed_0a01
+
+// Calibration reports how a run chose its own gain when Settings.Gain was
+// nil. It is on Result.Calibration.
+type Calibration struct {
+	// Gain is the schedule the run used (also in Result.Settings.Gain).
+	Gain schedule.Schedule
+	// Method names the rule, Source the publication it comes from.
+	Method, Source string
+	// Slope is the slope scale the gain was built from: the pilot's
+	// estimate of the mean eigenvalue of the Jacobian (pilot methods), or
+	// the bound on the curvature of the sampled gradient (data methods).
+	Slope float64
+	// RowNormSquared and Curvature are the data measurements of the
+	// regression methods: R² = max_i ‖ã_i‖² (ã_i the row with the
+	// intercept's 1, times the loss's largest second derivative) and the
+	// largest eigenvalue of the mean Hessian bound, by power iteration.
+	// They are 0 for the pilot methods.
+	RowNormSquared, Curvature float64
+	// Pilot lists the pilot's levels (empty for the data methods).
+	Pilot []PilotLevel
+	// PilotCalls is the number of oracle calls the pilot used and
+	// PilotMeasurements their measurements. Both count against the run's
+	// budgets: each call as one step of MaxSteps, its measurements against
+	// MaxMeasurements, and Result.Measurements includes them.
+	PilotCalls, PilotMeasurements int
+	// How says in a sentence how the gain was chosen.
+	How string
+}
+
+// PilotLevel is one perturbation size of the calibration pilot: Pairs
+// pairs of measurements at x0 ± Delta·u (u random with entries ±1) gave the
+// slope quotients ⟨h(x0+δu) − h(x0−δu), 2δu⟩/‖2δu‖² with mean Slope and
+// standard error StdErr.
+type PilotLevel struct {
+	Delta, Slope, StdErr float64
+	Pairs                int
+}
+
+// Defaults of the calibrated gains.
+const (
+	// calibExponent is the exponent α of the pilot-calibrated gain
+	// a/(k+1)^α: between 1/2 and 1, where Polyak–Ruppert averaging attains
+	// the optimal asymptotic covariance whatever the scale a (Polyak &
+	// Juditsky 1992, SIAM J. Control Optim. 30(4), Theorem 2); 0.7 is
+	// common practice.
+	calibExponent = 0.7
+	// pilotShare is the largest share of the budget the pilot may use.
+	pilotShare = 0.1
+	// pilotPairs is the number of measurement pairs per pilot level, and
+	// pilotT the t-statistic a level's mean slope must reach to be taken.
+	// With 8 pairs (7 degrees of freedom) a level of pure noise passes
+	// t > 5 with probability below 0.001 (Student t table, common
+	// practice).
+	pilotPairs = 8
+	pilotT     = 5.0
+	// pilotLevels perturbation sizes δ = base·10^(j−3), j = 0, …, 9, base
+	// = max(1, ‖x0‖∞): nine decades around the scale of x0.
+	pilotLevels = 10
+	// pilotMaxCalls caps the pilot when no budget is finite.
+	pilotMaxCalls = 2 * pilotPairs * pilotLevels
+)
+
+// pilotBudget returns the number of oracle calls the pilot may use: a
+// pilotShare of the tightest budget in calls, at most pilotMaxCalls, at
+// least 4 (2 pairs).
+func pilotBudget(rs Settings, perCall, epochMeas int) int {
+	calls := math.MaxInt
+	if rs.MaxSteps != NoLimit {
+		calls = rs.MaxSteps
+	}
+	if rs.MaxMeasurements > 0 {
+		calls = min(calls, rs.MaxMeasurements/perCall)
+	}
+	if epochMeas > 0 {
+		calls = min(calls, epochMeas/perCall)
+	}
+	b := pilotMaxCalls
+	if calls != math.MaxInt {
+		b = min(b, int(pilotShare*float64(calls)))
+	}
+	return max(b, 0)
+}
+
+// calibratePilot chooses a gain for the field h from a short pilot at x0:
+// it estimates the slope scale of h near x0 from symmetric differences of
+// averaged measurements along random ±1 directions, the finite-difference
+// slope estimate of Venter (1967, "An extension of the Robbins–Monro
+// procedure", Ann. Math. Statist. 38(1)) taken along a simultaneous random
+// direction as in Spall (2000, "Adaptive stochastic approximation by the
+// simultaneous perturbation method", IEEE Trans. Automat. Control 45(10)).
+// The perturbation size grows a decade at a time from 10⁻³ of the scale of
+// x0 until the mean quotient stands clear of its noise (t > pilotT). The
+// gain is then the Polyak–Juditsky averaged gain (1/ŝ)/(k+1)^0.7.
+//
+// It uses at most maxCalls calls; it returns the calibration, the calls
+// and measurements used, or an oracle error.
+func calibratePilot(ctx context.Context, h oracle.Field, x0 []float64, rs Settings, perCall, maxCalls int) (*Calibration, error) {
+	d := len(x0)
+	rng := rand.New(rand.NewPCG(rs.Seed, streamCalibrate))
+	base := 1.0
+	for _, v := range x0 {
+		base = math.Max(base, math.Abs(v))
+	}
+	cal := &Calibration{
+		Method: "pilot slope by symmetric differences along random directions, then the averaged gain (1/ŝ)/(k+1)^0.7",
+		Source: "Venter 1967, Ann. Math. Statist. 38(1) (slope from differences); Spall 2000, IEEE TAC 45(10) (simultaneous random directions); Polyak & Juditsky 1992, SIAM J. Control Optim. 30(4) (averaging)",
+	}
+	pairs := pilotPairs
+	if maxCalls < 2*pairs*pilotLevels {
+		pairs = max(2, maxCalls/(2*pilotLevels))
+	}
+	xp, xm := make([]float64, d), make([]float64, d)
+	yp, ym := make([]float64, d), make([]float64, d)
+	u := make([]float64, d)
+	q := make([]float64, 0, pairs)
+	slope, best := 0.0, -1
+	bestT := math.Inf(-1)
+	for j := range pilotLevels {
+		if cal.PilotCalls+2*pairs > maxCalls {
+			break
+		}
+		delta := base * math.Pow(10, float64(j-3))
+		q = q[:0]
+		outside := false
+		for range pairs {
+			for i := range u {
+				u[i] = 1
+				if rng.Uint64()&1 == 1 {
+					u[i] = -1
+				}
+			}
+			for i := range u {
+				xp[i] = x0[i] + delta*u[i]
+				xm[i] = x0[i] - delta*u[i]
+			}
+			if rs.Projection != nil {
+				rs.Projection.Project(xp)
+				rs.Projection.Project(xm)
+			}
+			if rs.MaxAbs > 0 {
+				for i := range xp {
+					if math.Abs(xp[i]) > rs.MaxAbs || math.Abs(xm[i]) > rs.MaxAbs {
+						outside = true
+					}
+				}
+			}
+			if outside {
+				break
+			}
+			if err := oracle.MeasureStep(ctx, h, 0, yp, xp, rng); err != nil {
+				return cal, fmt.Errorf("sa: calibration pilot (Settings.Gain is nil), measurement at x0 + %g·u: %w", delta, err)
+			}
+			if err := oracle.MeasureStep(ctx, h, 0, ym, xm, rng); err != nil {
+				return cal, fmt.Errorf("sa: calibration pilot (Settings.Gain is nil), measurement at x0 − %g·u: %w", delta, err)
+			}
+			cal.PilotCalls += 2
+			num, den := 0.0, 0.0
+			for i := range xp {
+				dx := xp[i] - xm[i]
+				num += (yp[i] - ym[i]) * dx
+				den += dx * dx
+			}
+			if den > 0 && !math.IsNaN(num) && !math.IsInf(num, 0) {
+				q = append(q, num/den)
+			}
+		}
+		if outside || len(q) < 2 {
+			break
+		}
+		mean, se := meanSE(q)
+		cal.Pilot = append(cal.Pilot, PilotLevel{Delta: delta, Slope: mean, StdErr: se, Pairs: len(q)})
+		t := math.Inf(1)
+		if se > 0 {
+			t = mean / se
+		}
+		if mean > 0 && t > bestT {
+			best, bestT = len(cal.Pilot)-1, t
+		}
+		if mean > 0 && t > pilotT {
+			slope = mean
+			break
+		}
+	}
+	cal.PilotMeasurements = cal.PilotCalls * perCall
+	switch {
+	case slope > 0:
+		l := cal.Pilot[len(cal.Pilot)-1]
+		cal.How = fmt.Sprintf("a pilot of %d measurements at x0 ± δ·u found the slope ŝ = %.3g ± %.2g at δ = %.3g (the smallest of the sizes tried whose slope stood clear of the noise), so the gain is (1/ŝ)/(k+1)^%.1g with averaging", cal.PilotMeasurements, l.Slope, l.StdErr, l.Delta, calibExponent)
+	case best >= 0:
+		l := cal.Pilot[best]
+		slope = l.Slope
+		cal.How = fmt.Sprintf("a pilot of %d measurements found no slope clear of the noise (t > %g); the clearest, ŝ = %.3g ± %.2g at δ = %.3g, sets the gain (1/ŝ)/(k+1)^%.1g; set Settings.Gain if you know the slope better", cal.PilotMeasurements, pilotT, l.Slope, l.StdErr, l.Delta, calibExponent)
+	default:
+		slope = 1
+		cal.How = fmt.Sprintf("a pilot of %d measurements found no positive slope (is h pointing away from the root? see RobbinsMonro's sign convention), so the gain falls back to 1/(k+1)^%.1g; set Settings.Gain", cal.PilotMeasurements, calibExponent)
+	}
+	cal.Slope = slope
+	cal.Gain = schedule.Power{Scale: 1 / slope, Exponent: calibExponent}
+	return cal, nil
+}
+
+// meanSE returns the mean of q and its standard error.
+func meanSE(q []float64) (mean, se float64) {
+	n := float64(len(q))
+	for _, v := range q {
+		mean += v
+	}
+	mean /= n
+	ss := 0.0
+	for _, v := range q {
+		ss += (v - mean) * (v - mean)
+	}
+	return mean, math.Sqrt(ss / (n - 1) / n)
+}
+
+// calibrateRegression chooses the gain of a finite-sum run on a ready-made
+// regression model from its data (Bach & Moulines 2013, "Non-strongly-
+// convex smooth stochastic approximation with convergence rate O(1/n)",
+// NeurIPS): with R² the bound on the per-sample curvature, L the largest
+// curvature of the mean, and batches of m samples drawn with replacement,
+// the curvature of the batch gradient is bounded by R²_m = L + (R² − L)/m
+// (the variance of a mean of m draws). Least squares uses the constant
+// step 1/(4R²_m) of their Theorem 1 with averaging; the logistic loss the
+// averaged step 1/(2R²_m·√(k+1)) (their decaying-step variant,
+// Bach & Moulines 2011, NeurIPS, "Non-asymptotic analysis of stochastic
+// approximation algorithms for machine learning"); a full batch the step
+// 1/L of gradient descent (common practice). ok is false for a model the
+// rule does not cover (pinball loss).
+func calibrateRegression(r *oracle.Regression, batch int, full bool) (*Calibration, bool) {
+	R2, L, ok := r.CurvatureBounds()
+	if !ok || !(L > 0) || !(R2 > 0) {
+		return nil, false
+	}
+	cal := &Calibration{RowNormSquared: R2, Curvature: L}
+	switch {
+	case full:
+		cal.Slope = L
+		cal.Gain = schedule.Constant(1 / L)
+		cal.Method = "gradient descent step 1/L, L the largest curvature of the mean loss"
+		cal.Source = "common practice (step 1/L of gradient descent for an L-smooth objective); L by power iteration"
+		cal.How = fmt.Sprintf("full batch: L = %.4g from a power iteration on the data, so the constant step is 1/L = %.4g", L, 1/L)
+	case r.Loss() == oracle.SquaredLoss:
+		m := float64(batch)
+		rm := L + (R2-L)/m
+		cal.Slope = rm
+		cal.Gain = schedule.Constant(1 / (4 * rm))
+		cal.Method = "constant-step averaged SGD, step 1/(4R²_m)"
+		cal.Source = "Bach & Moulines 2013, NeurIPS, Theorem 1 (least squares)"
+		cal.How = fmt.Sprintf("from the data: R² = %.4g (largest squared row norm), L = %.4g (largest curvature), batches of %d give R²_m = L + (R² − L)/m = %.4g, so the constant step is 1/(4R²_m) = %.4g with averaging", R2, L, batch, rm, 1/(4*rm))
+	default:
+		m := float64(batch)
+		rm := L + (R2-L)/m
+		cal.Slope = rm
+		cal.Gain = schedule.Power{Scale: 1 / (2 * rm), Exponent: 0.5}
+		cal.Method = "averaged SGD with step 1/(2R²_m·√(k+1))"
+		cal.Source = "Bach & Moulines 2013, NeurIPS (step 1/(2R²√N) for logistic regression); Bach & Moulines 2011, NeurIPS (decaying step C/√n with averaging)"
+		cal.How = fmt.Sprintf("from the data: R² = %.4g (largest squared row norm times ¼, the logistic loss's largest curvature), L = %.4g, batches of %d give R²_m = %.4g, so the step is %.4g/√(k+1) with averaging", R2, L, batch, rm, 1/(2*rm))
+	}
+	return cal, true
+}
+
+// noteAverage fills r.NotAveraged when the estimate is not an average.
+func noteAverage(r *Result) {
+	if r.Average != nil {
+		r.NotAveraged = ""
+		return
+	}
+	switch {
+	case r.Steps == 0:
+		r.NotAveraged = "no step was taken, so Estimate returns the starting point"
+	default:
+		r.NotAveraged = fmt.Sprintf("no iterate was averaged: Settings.BurnIn = %d covers all %d steps taken, so Estimate returns the last iterate X, which carries the full noise of the last steps and has no error bars; lower BurnIn or raise the budget", r.Settings.BurnIn, r.Steps)
+	}
+}
+
+// withGain resolves the caller's settings s again with the calibrated gain.
+func withGain(s Settings, g schedule.Schedule, d int) (Settings, error) {
+	s.Gain = g
+	return s.resolve(d)
+}
+
+// calibrateSum chooses the gain of a MinimizeSum run: from the data for a
+// ready-made least-squares or logistic model, by the pilot otherwise.
+func calibrateSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, rs Settings, epochMeas int) (*Calibration, error) {
+	if r, ok := g.Sum().(*oracle.Regression); ok {
+		if cal, ok := calibrateRegression(r, g.BatchSize(), g.Full()); ok {
+			return cal, nil
+		}
+	}
+	per := g.MeasurementsPerCall()
+	return calibratePilot(ctx, g, x0, rs, per, pilotBudget(rs, per, epochMeas))
+}
