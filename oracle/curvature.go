@@ -14,9 +14,12 @@ const curvatureIters = 30
 // strongly-convex smooth stochastic approximation with convergence rate
 // O(1/n)", NeurIPS, where R² bounds ‖x_n‖²):
 //
-//   - r2 = c·max_i ‖ã_i‖² + L2, the largest curvature of one sample loss,
-//     with ã_i = (1, a_i) (or a_i without an intercept) and c the loss's
-//     largest second derivative (1 squared, ¼ logistic);
+//   - r2 = c·Σ‖ã_i‖⁴ / Σ‖ã_i‖² + L2, with ã_i = (1, a_i) (or a_i without
+//     an intercept) and c the loss's largest second derivative (1 squared,
+//     ¼ logistic): the trace form of the constant R² of Bach & Moulines'
+//     condition E[‖ã‖²ããᵀ] ≼ R²·E[ããᵀ] (equal to it for isotropic rows;
+//     for Gaussian rows R² = tr Σ + 2λ_max, the trace form tr Σ + 2‖Σ‖²_F/tr Σ),
+//     which sets the largest stable step of single-sample SGD, about 2/R²;
 //   - top, the largest eigenvalue of c·(1/n)·Σ ã_i ã_iᵀ + L2·I (penalty on
 //     the coefficients only), the largest curvature of the mean loss
 //     (exact for least squares, an upper bound for logistic regression),
@@ -37,9 +40,15 @@ func (r *Regression) CurvatureBounds() (r2, top float64, ok bool) {
 		return 0, 0, false
 	}
 	n, p, off := r.n, r.p, r.off
+	var s2, s4 float64
 	for i := range n {
 		row := r.a[i*p : (i+1)*p]
-		r2 = math.Max(r2, floats.Dot(row, row)+float64(off))
+		q := floats.Dot(row, row) + float64(off)
+		s2 += q
+		s4 += q * q
+	}
+	if s2 > 0 {
+		r2 = s4 / s2
 	}
 	r2 = c*r2 + r.l2
 	d := p + off

@@ -58,7 +58,7 @@ type Settings struct {
 	// MinimizeSum on a ready-made least-squares or logistic model
 	// (oracle.Regression) takes the step from the data (Bach & Moulines
 	// 2013); every other run spends a short pilot, at most a tenth of its
-	// budget and at most 160 oracle calls, on a slope estimate ŝ and uses
+	// budget and at most 1000 oracle calls, on a slope estimate ŝ and uses
 	// (1/ŝ)/(k+1)^0.7 with averaging (see Calibration). Set a gain yourself
 	// when you know the slope of the field near the root (the right scale
 	// is then about 1/slope), when the pilot's measurements far from x0
