@@ -86,3 +86,39 @@ func TestCurvatureBoundsAgainstGonum(t *testing.T) {
 		t.Error("pinball loss: CurvatureBounds reports ok")
 	}
 }
+
+// TestCurvatureBoundsOfSample: with rows ≥ n the sample is every row (the
+// same values bit for bit); with fewer it reads rows ⌊j·n/rows⌋, checked
+// against CurvatureBounds of a model built from exactly those rows.
+func TestCurvatureBoundsOfSample(t *testing.T) {
+	const n, p, rows = 1000, 3, 300
+	rng := rand.New(rand.NewPCG(5, 6))
+	a, y := make([]float64, n*p), make([]float64, n)
+	for i := range a {
+		a[i] = rng.NormFloat64()
+	}
+	m, err := NewLeastSquares(Dense{Data: a, Cols: p}, y, RegressionSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	r1, t1, _ := m.CurvatureBounds()
+	for _, k := range []int{n, n + 5, 0, -1} {
+		if r2, t2, _ := m.CurvatureBoundsOf(k); r2 != r1 || t2 != t1 {
+			t.Errorf("CurvatureBoundsOf(%d) = %v, %v; want all rows: %v, %v", k, r2, t2, r1, t1)
+		}
+	}
+	sa, sy := make([]float64, 0, rows*p), make([]float64, rows)
+	for j := range rows {
+		i := j * n / rows
+		sa = append(sa, a[i*p:(i+1)*p]...)
+	}
+	sm, err := NewLeastSquares(Dense{Data: sa, Cols: p}, sy, RegressionSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	wr, wt, _ := sm.CurvatureBounds()
+	gr, gt, _ := m.CurvatureBoundsOf(rows)
+	if math.Abs(gr-wr) > 1e-12*wr || math.Abs(gt-wt) > 1e-12*wt {
+		t.Errorf("CurvatureBoundsOf(%d) = %v, %v; the sampled rows' model gives %v, %v", rows, gr, gt, wr, wt)
+	}
+}

@@ -117,7 +117,7 @@ func TestCalibrationRegressionFromData(t *testing.T) {
 	if c == nil || c.PilotCalls != 0 || !strings.Contains(c.Source, "Bach & Moulines 2013") {
 		t.Fatalf("Calibration %+v: want the data method without a pilot", c)
 	}
-	R2, L, _ := m.CurvatureBounds()
+	R2, L, _ := m.CurvatureBounds() // 3000 rows: the sample is all of them
 	rm := L + (R2-L)/16
 	if c.RowNormSquared != R2 || c.Curvature != L || c.Gain != schedule.Constant(1/(4*rm)) {
 		t.Errorf("Calibration R² %v, L %v, gain %v; want %v, %v, Constant(%v)", c.RowNormSquared, c.Curvature, c.Gain, R2, L, 1/(4*rm))
