@@ -327,7 +327,7 @@ func calibrateRegression(r *oracle.Regression, batch int, full bool) (*Calibrati
 		cal.Gain = schedule.Constant(1 / L)
 		cal.Method = "gradient descent step 1/L, L the largest curvature of the mean loss"
 		cal.Source = "common practice (step 1/L of gradient descent for an L-smooth objective); L by power iteration"
-		cal.How = fmt.Sprintf("full batch: L = %.4g from a power iteration on the data, so the constant step is 1/L = %.4g", L, 1/L)
+		cal.How = fmt.Sprintf("full batch: L = %.4g from a power iteration on the data, so the constant step is 1/L = %.4g; gradient descent converges in its last iterate, so report Result.X (the average lags behind)", L, 1/L)
 	case r.Loss() == oracle.SquaredLoss:
 		m := float64(batch)
 		rm := L + (R2-L)/m

@@ -33,6 +33,11 @@ const streamSample uint64 = 0x5eed_0301
 // below 2/L, L the largest curvature of f, converges to the minimiser and
 // Result.X is the answer.
 //
+// With s.Gain nil the run chooses its own gain: from the data for a
+// least-squares or logistic *oracle.Regression (Bach & Moulines 2013; no
+// measurement is spent), by the calibration pilot otherwise (see
+// Calibration, reported on Result.Calibration).
+//
 // The run stops on the first of: s.MaxSteps steps, the budget of
 // s.MaxMeasurements sample gradients, the budget of s.MaxEpochs passes over
 // the data (s.MaxEpochs·n sample gradients), cancellation of ctx, or a

@@ -27,6 +27,10 @@ const (
 // gradient: h should point away from the root (h(x) > 0 for x > x* in one
 // dimension); measure −h otherwise.
 //
+// With s.Gain nil the run first spends a short calibration pilot on a slope
+// estimate and chooses its gain from it (see Calibration, reported on
+// Result.Calibration); the pilot's calls count against the budgets.
+//
 // The run stops on the first of: s.MaxSteps steps, the measurement budget
 // s.MaxMeasurements, the precision stop s.Precision (Reason Precise),
 // cancellation of ctx (checked before every step), or a failed step (an
