@@ -115,7 +115,6 @@ func TestPullDriversBadInput(t *testing.T) {
 		{"wrong length for the oracle", dimField{field, 3}, []float64{1, 2}, ok, sa.ErrDimension, "dimension 3"},
 		{"NaN x0", field, []float64{1, nan}, ok, sa.ErrSettings, "x0"},
 		{"-Inf x0", field, []float64{math.Inf(-1)}, ok, sa.ErrSettings, "x0"},
-		{"nil gain", field, []float64{1}, with(func(s *sa.Settings) { s.Gain = nil }), sa.ErrSettings, "Settings.Gain"},
 		{"invalid gain", field, []float64{1}, with(func(s *sa.Settings) { s.Gain = schedule.Power{Scale: nan, Exponent: 0.7} }), sa.ErrSettings, "Settings.Gain"},
 		{"negative MaxSteps", field, []float64{1}, with(func(s *sa.Settings) { s.MaxSteps = -5 }), sa.ErrSettings, "Settings.MaxSteps"},
 		{"MinInt MaxSteps", field, []float64{1}, with(func(s *sa.Settings) { s.MaxSteps = math.MinInt }), sa.ErrSettings, "Settings.MaxSteps"},

@@ -33,6 +33,11 @@ const streamSample uint64 = 0x5eed_0301
 // below 2/L, L the largest curvature of f, converges to the minimiser and
 // Result.X is the answer.
 //
+// With s.Gain nil the run chooses its own gain: from the data for a
+// least-squares or logistic *oracle.Regression (Bach & Moulines 2013; no
+// measurement is spent), by the calibration pilot otherwise (see
+// Calibration, reported on Result.Calibration).
+//
 // The run stops on the first of: s.MaxSteps steps, the budget of
 // s.MaxMeasurements sample gradients, the budget of s.MaxEpochs passes over
 // the data (s.MaxEpochs·n sample gradients), cancellation of ctx, or a
@@ -81,12 +86,30 @@ func MinimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Setti
 	}
 	defer g.Release()
 	g.Reset()
+	if rs.Gain == nil {
+		cal, err := calibrateSum(ctx, g, x0, rs, lim.epochMeasurements)
+		r.Calibration = cal
+		if cal != nil {
+			r.Measurements = cal.PilotMeasurements
+			lim.pilotSteps = cal.PilotCalls
+		}
+		if err != nil {
+			r.Reason = Failed
+			r.Epochs = float64(r.Measurements) / float64(n)
+			return r, err
+		}
+		if rs, err = withGain(s, cal.Gain, d); err != nil {
+			return r, err
+		}
+		r.Settings = rs
+	}
 	c := newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs)
 	c.trusted = true // a MiniBatch leaves x alone
 	rng := rand.New(rand.NewPCG(rs.Seed, streamSample))
 	y := make([]float64, d)
 	err = runPullWith(ctx, c, g, y, rng, g.MeasurementsPerCall(), &r, lim)
 	c.fill(&r)
+	noteAverage(&r)
 	r.Epochs = float64(r.Measurements) / float64(n)
 	return r, err
 }

@@ -125,7 +125,6 @@ func TestMinimizeSumBadInput(t *testing.T) {
 		{"empty x0", g, nil, sa.Settings{Gain: gain}, sa.ErrDimension},
 		{"wrong dimension", g, make([]float64, 2), sa.Settings{Gain: gain}, sa.ErrDimension},
 		{"NaN in x0", g, []float64{0, math.NaN(), 0}, sa.Settings{Gain: gain}, sa.ErrSettings},
-		{"no gain", g, make([]float64, 3), sa.Settings{}, sa.ErrSettings},
 		{"negative epochs", g, make([]float64, 3), sa.Settings{Gain: gain, MaxEpochs: -1}, sa.ErrSettings},
 		{"never stops", g, make([]float64, 3), sa.Settings{Gain: gain, MaxSteps: sa.NoLimit}, sa.ErrSettings},
 	} {

@@ -43,6 +43,13 @@ type Result struct {
 	// Seed is the seed the run used; Settings holds the resolved settings.
 	Seed     uint64
 	Settings Settings
+	// Calibration says how the run chose its own gain when Settings.Gain
+	// was nil (see Calibration), and is nil when the caller set the gain.
+	Calibration *Calibration
+	// NotAveraged is empty when Estimate returns the Polyak–Ruppert
+	// average, and otherwise says in a sentence why it returns the last
+	// iterate X instead (for example a BurnIn that covers every step taken).
+	NotAveraged string
 }
 
 // Estimate returns Average when it exists and X otherwise: the estimate to

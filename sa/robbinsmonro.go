@@ -27,6 +27,10 @@ const (
 // gradient: h should point away from the root (h(x) > 0 for x > x* in one
 // dimension); measure −h otherwise.
 //
+// With s.Gain nil the run first spends a short calibration pilot on a slope
+// estimate and chooses its gain from it (see Calibration, reported on
+// Result.Calibration); the pilot's calls count against the budgets.
+//
 // The run stops on the first of: s.MaxSteps steps, the measurement budget
 // s.MaxMeasurements, the precision stop s.Precision (Reason Precise),
 // cancellation of ctx (checked before every step), or a failed step (an
@@ -59,7 +63,7 @@ const (
 // is SPSA minimisation of f, and Result.Measurements counts the 2 (or 2p
 // for Kiefer–Wolfowitz) function values each step uses.
 func RobbinsMonro(ctx context.Context, h oracle.Field, x0 []float64, s Settings) (Result, error) {
-	sv, err := NewSolver(h, x0, s)
+	sv, err := newSolver(ctx, h, x0, s)
 	if err != nil {
 		return sv.Result(), err
 	}
@@ -76,13 +80,21 @@ type Solver struct {
 	rng     *rand.Rand
 	y       []float64
 	perCall int
+	pilot   int // oracle calls of the calibration pilot, counted as steps
 	r       Result
 }
 
 // NewSolver validates its input and prepares a run from x0 (copied). On
 // error the returned Solver cannot step, but its Result holds x0, the seed
-// and the settings as given.
+// and the settings as given. With a nil Settings.Gain, NewSolver runs the
+// calibration pilot (see Calibration), which measures h.
 func NewSolver(h oracle.Field, x0 []float64, s Settings) (*Solver, error) {
+	return newSolver(context.Background(), h, x0, s)
+}
+
+// newSolver is NewSolver with the context the calibration pilot measures
+// under.
+func newSolver(ctx context.Context, h oracle.Field, x0 []float64, s Settings) (*Solver, error) {
 	sv := &Solver{r: Result{X: append([]float64(nil), x0...), Seed: s.Seed, Settings: s}}
 	if h == nil {
 		return sv, ErrNilOracle
@@ -106,6 +118,23 @@ func NewSolver(h oracle.Field, x0 []float64, s Settings) (*Solver, error) {
 	if err != nil {
 		return sv, err
 	}
+	if rs.Gain == nil {
+		if err := checkStops(ctx, rs); err != nil {
+			return sv, err
+		}
+		cal, err := calibratePilot(ctx, h, x0, rs, sv.perCall, pilotBudget(rs, sv.perCall, 0))
+		sv.r.Calibration = cal
+		sv.r.Measurements = cal.PilotMeasurements
+		sv.pilot = cal.PilotCalls
+		if err != nil {
+			sv.r.Reason = Failed
+			return sv, err
+		}
+		if rs, err = withGain(s, cal.Gain, d); err != nil {
+			return sv, err
+		}
+		sv.r.Settings = rs
+	}
 	sv.h = h
 	sv.c = newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs)
 	sv.c.trusted = leavesXAlone(h)
@@ -126,7 +155,7 @@ func (sv *Solver) Run(ctx context.Context) (Result, error) {
 	if err := checkStops(ctx, rs); err != nil {
 		return sv.Result(), err
 	}
-	err := runPull(ctx, sv.c, sv.h, sv.y, sv.rng, sv.perCall, &sv.r)
+	err := runPullWith(ctx, sv.c, sv.h, sv.y, sv.rng, sv.perCall, &sv.r, pullLimits{pilotSteps: sv.pilot})
 	return sv.Result(), err
 }
 
@@ -172,6 +201,7 @@ func (sv *Solver) Result() Result {
 		return r
 	}
 	sv.c.fill(&r)
+	noteAverage(&r)
 	return r
 }
 
@@ -227,6 +257,9 @@ type pullLimits struct {
 	// epochMeasurements > 0 stops the run with EpochLimit before a step
 	// that would take Measurements above it (MaxEpochs·n for finite sums).
 	epochMeasurements int
+	// pilotSteps is the number of oracle calls a calibration pilot used
+	// before the run; they count against MaxSteps.
+	pilotSteps int
 }
 
 // runPullWith is runPull with the extra stop rules in lim.
@@ -236,7 +269,7 @@ func runPullWith(ctx context.Context, c *core, h oracle.Field, y []float64, rng 
 	maxEpochMeas := lim.epochMeasurements
 	done := ctx.Done()
 	for {
-		if maxSteps != NoLimit && c.steps >= maxSteps {
+		if maxSteps != NoLimit && c.steps+lim.pilotSteps >= maxSteps {
 			r.Reason = StepLimit
 			return nil
 		}

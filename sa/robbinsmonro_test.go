@@ -235,7 +235,6 @@ func TestBadInput(t *testing.T) {
 		{"zero dimension", linear(1), nil, ok, sa.ErrDimension, ""},
 		{"oracle dimension", oracle.Scalar(nil), []float64{0, 0}, ok, sa.ErrDimension, ""},
 		{"non-finite x0", linear(1), []float64{math.NaN()}, ok, sa.ErrSettings, "x0"},
-		{"nil gain", linear(1), []float64{0}, sa.Settings{}, sa.ErrSettings, "Settings.Gain"},
 		{"bad power", linear(1), []float64{0}, sa.Settings{Gain: schedule.Power{Scale: -1, Exponent: 1}}, sa.ErrSettings, "Power.Scale"},
 		{"bad constant", linear(1), []float64{0}, sa.Settings{Gain: schedule.Constant(0)}, sa.ErrSettings, "Constant"},
 		{"MaxSteps", linear(1), []float64{0}, sa.Settings{Gain: gain, MaxSteps: -5}, sa.ErrSettings, "Settings.MaxSteps"},

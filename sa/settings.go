@@ -53,14 +53,28 @@ const DefaultMaxSteps = 10000
 // never write to the caller's Settings; Result.Settings holds the resolved
 // copy.
 type Settings struct {
-	// Gain is the gain sequence a_k. It is required: the right scale depends
-	// on the problem (roughly 1/slope of the field near the root for the
-	// harmonic gain). schedule.Power{Scale: a, Exponent: 0.7} with averaging
-	// is a robust start.
+	// Gain is the gain sequence a_k. nil (the default) lets the run choose
+	// its own gain for its budget and report how on Result.Calibration:
+	// MinimizeSum on a ready-made least-squares or logistic model
+	// (oracle.Regression) takes the step from the data (Bach & Moulines
+	// 2013); every other run spends a short pilot, at most a tenth of its
+	// budget and at most 1000 oracle calls, on a slope estimate ŝ and uses
+	// (1/ŝ)/(k+1)^0.7 with averaging (see Calibration). Set a gain yourself
+	// when you know the slope of the field near the root (the right scale
+	// is then about 1/slope), when the pilot's measurements far from x0
+	// are costly or unsafe, when the run must track a moving target (a
+	// constant gain), or when the run is continued from an earlier one.
+	// The push-style tuners still need a gain: a live system cannot be
+	// probed by a pilot at arbitrary distances from its setting.
 	Gain schedule.Schedule
 
-	// MaxSteps is the step budget. 0 means DefaultMaxSteps; NoLimit means no
-	// step budget (another stop rule or the context must end the run).
+	// MaxSteps is the step budget. 0 means DefaultMaxSteps, unless
+	// MaxMeasurements or MaxEpochs is set: then 0 means no step budget, so
+	// that the budget the caller set is the one that binds (a run given
+	// only MaxEpochs = 3 makes 3 passes, not DefaultMaxSteps steps). NoLimit
+	// means no step budget (another stop rule or the context must end the
+	// run). When several budgets are set, the first one reached ends the
+	// run and Result.Reason names it.
 	MaxSteps int
 
 	// MaxMeasurements is the budget of underlying measurements (see
@@ -70,7 +84,9 @@ type Settings struct {
 
 	// BurnIn is the number of iterates left out of the Polyak–Ruppert
 	// average: the average is taken over x_{BurnIn+1}, …, x_n. 0 averages
-	// every iterate after the first step.
+	// every iterate after the first step. A run that stops after BurnIn
+	// steps or fewer has no average: Result.Estimate then returns the last
+	// iterate and Result.NotAveraged says so and why.
 	BurnIn int
 
 	// Projection, if not nil, is applied after every update. Box, Ball
@@ -113,15 +129,14 @@ type Settings struct {
 // resolve validates s for dimension d and returns the copy with defaults
 // filled in.
 func (s Settings) resolve(d int) (Settings, error) {
-	if s.Gain == nil {
-		return s, settingsErr("Settings.Gain is nil: a gain schedule is required, for example schedule.Power{Scale: 1, Exponent: 0.7}")
-	}
 	if v, ok := s.Gain.(schedule.Validator); ok {
 		if err := v.Validate(); err != nil {
 			return s, settingsErr("Settings.Gain: %v", err)
 		}
 	}
 	switch {
+	case s.MaxSteps == 0 && (s.MaxMeasurements > 0 || s.MaxEpochs > 0):
+		s.MaxSteps = NoLimit // the budget the caller set binds
 	case s.MaxSteps == 0:
 		s.MaxSteps = DefaultMaxSteps
 	case s.MaxSteps < 0 && s.MaxSteps != NoLimit:

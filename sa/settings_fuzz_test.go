@@ -44,7 +44,7 @@ func FuzzSettingsResolve(f *testing.F) {
 			s.Gain = schedule.Kesten{Base: schedule.Power{Scale: gScale, Offset: gOffset, Exponent: gExp}}
 		case 2:
 			s.Gain = schedule.Constant(gScale)
-		case 3: // nil gain
+		case 3: // nil gain: the run calibrates its own (resolve accepts it)
 		}
 		if flags&1 != 0 {
 			s.Precision = &Precision{Absolute: precAbs, Relative: precRel}
@@ -110,11 +110,13 @@ func invalidResolved(r, s Settings, d int) string {
 	finite := func(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 	in := r.Inference
 	switch {
-	case r.Gain == nil:
+	case r.Gain == nil && s.Gain != nil:
 		return "a nil gain"
 	case !(r.MaxSteps > 0 || r.MaxSteps == NoLimit):
 		return fmt.Sprintf("MaxSteps = %d", r.MaxSteps)
-	case s.MaxSteps == 0 && r.MaxSteps != DefaultMaxSteps:
+	case s.MaxSteps == 0 && (s.MaxMeasurements > 0 || s.MaxEpochs > 0) && r.MaxSteps != NoLimit:
+		return "MaxSteps 0 with a measurement or epoch budget not resolved to NoLimit (the caller's budget binds)"
+	case s.MaxSteps == 0 && s.MaxMeasurements == 0 && s.MaxEpochs == 0 && r.MaxSteps != DefaultMaxSteps:
 		return "MaxSteps 0 not resolved to the default"
 	case r.MaxMeasurements < 0 || r.MaxEpochs < 0 || r.BurnIn < 0:
 		return "a negative budget or burn-in"

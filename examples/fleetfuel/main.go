@@ -108,6 +108,9 @@ func main() {
 		// the trip features, whose largest eigenvalue is below 3 here: a
 		// constant gain of 0.5 is stable.
 		{"BGD", 0, schedule.Constant(0.5), 60},
+		// No gain: the run takes its step from the data (R² and the
+		// largest curvature of the standardised columns) and says how.
+		{"auto", 64, nil, 3},
 	}
 	want := exact.RawVector().Data
 	// The objective at the exact answer, for the excess loss of each method
@@ -126,7 +129,7 @@ func main() {
 			log.Fatal(err)
 		}
 		s := sa.Settings{Gain: m.gain, MaxSteps: sa.NoLimit, MaxEpochs: m.epochs, Seed: 7}
-		if m.batch != 0 {
+		if m.batch != 0 && m.gain != nil {
 			s.BurnIn = n / m.batch / 2 // average from the middle of the first epoch
 		}
 		start := time.Now()
@@ -138,7 +141,10 @@ func main() {
 		}
 		est := res.X
 		if m.batch != 0 {
-			est = res.Average
+			est = res.Estimate()
+		}
+		if res.Calibration != nil {
+			defer fmt.Printf("\nauto: %s\n  (%s; %s)\n", res.Calibration.How, res.Calibration.Method, res.Calibration.Source)
 		}
 		coef := model.ToOriginal(make([]float64, p+1), est)
 		results[k] = coef
@@ -150,7 +156,7 @@ func main() {
 	}
 
 	fmt.Printf("\nmax rel err: largest |coefficient − exact|/|exact|; excess loss: objective minus its minimum %.4g\n", best)
-	fmt.Printf("\n%-14s %9s %10s %10s %10s %10s %10s\n", "coefficient", "truth", "exact LS", "SGD", "MBGD-64", "MBGD-1024", "BGD")
+	fmt.Printf("\n%-14s %9s %10s %10s %10s %10s %10s %10s\n", "coefficient", "truth", "exact LS", "SGD", "MBGD-64", "MBGD-1024", "BGD", "auto-64")
 	for j := range p + 1 {
 		name := "intercept L"
 		if j > 0 {
