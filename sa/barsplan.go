@@ -1,7 +1,7 @@
 package sa
 
 import (
-	"fmt"
+	"strconv"
 
 	"github.com/stochroot/stochroot/oracle"
 	"github.com/stochroot/stochroot/sampling"
@@ -51,8 +51,10 @@ func planFiniteSum(g *oracle.MiniBatch, rs Settings) (barsPlan, error) {
 	case *sampling.Shuffled:
 		if m == n {
 			p.deterministic = true
-			p.refuse = fmt.Sprintf("deterministic run: sampling.Shuffled with batch size %d = n hands out every item in every batch, "+
-				"so each step uses the exact gradient (up to the order of summation) and the iterates carry no sampling error", m)
+			// strconv, not fmt: fmt's buffer pool allocates at random under
+			// the race detector, which would make run allocations vary.
+			p.refuse = "deterministic run: sampling.Shuffled with batch size " + strconv.Itoa(m) + " = n hands out every item in every batch, " +
+				"so each step uses the exact gradient (up to the order of summation) and the iterates carry no sampling error"
 			break
 		}
 		// Measured (TestCoverageTable, NIST StRD NoInt1, SGD with batch 1):
@@ -60,9 +62,10 @@ func planFiniteSum(g *oracle.MiniBatch, rs Settings) (barsPlan, error) {
 		// random scaling 194 of 194 (not its nominal 95%: the error of the
 		// average does not follow the law it assumes). Neither is a valid
 		// interval; refuse.
-		p.refuse = fmt.Sprintf("sampling.Shuffled (without replacement) with batch size %d < n = %d: the sampling errors of one epoch sum to zero, "+
-			"so the steps are not independent given the past and neither batch means nor random scaling give a valid interval "+
-			"(measured: epoch-aligned batch means covered 46%%, random scaling 100%% at 95%% nominal); use sampling.Uniform for error bars", m, n)
+		p.refuse = "sampling.Shuffled (without replacement) with batch size " + strconv.Itoa(m) + " < n = " + strconv.Itoa(n) +
+			": the sampling errors of one epoch sum to zero, so the steps are not independent given the past and neither batch means " +
+			"nor random scaling give a valid interval (measured: epoch-aligned batch means covered 46%, random scaling 100% at 95% nominal); " +
+			"use sampling.Uniform for error bars"
 	}
 	if p.refuse != "" && rs.Precision != nil {
 		return p, settingsErr("Settings.Precision is set but this run can have no error bars, so the precision stop could never fire: %s", p.refuse)

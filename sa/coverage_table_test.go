@@ -117,7 +117,10 @@ func covConfigs(t testing.TB, long bool) []covConfig {
 				if err != nil {
 					t.Fatal(err)
 				}
-				return pullRun(g, []float64{0, 0}, sa.Settings{Gain: schedule.Power{Scale: 1, Exponent: 0.8}, BurnIn: 200, Seed: seed, Inference: in}, 20000)
+				// Scale 5: the run then spans about 18 noise memories by 2·10^4
+				// steps (n·a_n·λ/2 with λ = 1); with Scale 1 it spans 4 and the
+				// bars are withheld as unsettled.
+				return pullRun(g, []float64{0, 0}, sa.Settings{Gain: schedule.Power{Scale: 5, Offset: 5, Exponent: 0.8}, BurnIn: 200, Seed: seed, Inference: in}, 20000)
 			}},
 		{name: "SPSA two-measurement, 2·10^4", truth: m[0],
 			run: func(t testing.TB, seed uint64, in sa.Inference) (sa.Result, int, error) {
@@ -133,7 +136,10 @@ func covConfigs(t testing.TB, long bool) []covConfig {
 				if err != nil {
 					t.Fatal(err)
 				}
-				return pullRun(g, []float64{0, 0}, sa.Settings{Gain: schedule.Power{Scale: 0.3, Exponent: 0.7}, BurnIn: 200, Seed: seed, Inference: in}, 20000)
+				// The one-measurement estimate f/(c·Δ) grows with f, so a large
+				// gain diverges (Scale 0.3 did at step 23); with a stable gain
+				// the memory is long and the bars are expected to be withheld.
+				return pullRun(g, []float64{0, 0}, sa.Settings{Gain: schedule.Power{Scale: 0.05, Offset: 20, Exponent: 0.6}, BurnIn: 200, Seed: seed, Inference: in}, 20000)
 			}},
 		{name: "RM projected, active bound", truth: 0.9, refused: true, inDefault: true,
 			run: func(t testing.TB, seed uint64, in sa.Inference) (sa.Result, int, error) {
@@ -263,6 +269,11 @@ func TestCoverageTable(t *testing.T) {
 		R = 400
 	}
 	methods := []sa.Method{sa.MethodRandomScaling, sa.MethodBatchMeans}
+	if !long {
+		// Batch means on the same least-squares problem is checked with
+		// R = 400 by TestReferenceBatchMeansCoverage.
+		methods = methods[:1]
+	}
 	var b strings.Builder
 	fmt.Fprintf(&b, "\n%-38s %-6s %5s %7s %9s %11s %11s %6s  %s\n", "configuration", "method", "runs", "bars", "coverage", "half-width", "RMS error", "first", "verdict / reason")
 	for _, c := range covConfigs(t, long) {
@@ -289,6 +300,11 @@ func TestCoverageTable(t *testing.T) {
 			case c.refused:
 				verdict = "FAIL: bars reported"
 				t.Errorf("%s (%s): %d of %d runs report bars, want none", c.name, name, row.avail, R)
+			case row.avail < R/2 && row.avail > 0 && (p < lo || p > hi):
+				// Mostly withheld, but the few runs let through do not
+				// cover at the nominal level: a known gap (see the report of
+				// issue 11), printed, not hidden.
+				verdict = fmt.Sprintf("PARTLY withheld (%d runs), those shown cover %.3f: %s", R-row.avail, p, short(row.why))
 			case row.avail < R/2:
 				verdict = fmt.Sprintf("not available in %d runs: %s", R-row.avail, short(row.why))
 			case p >= lo && p <= hi:

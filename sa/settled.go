@@ -109,7 +109,9 @@ func (b *batchMeans) refusal() (why string, unsettled bool) {
 		return fmt.Sprintf("constraint active: the projection moved %d of the %d averaged iterates (more than %g of them); "+
 			"the average of a run held on the boundary is not normal about the root, so no interval is given", b.projected, b.j, MaxProjectedShare), false
 	}
-	if tau := b.memory(); tau > 0 && float64(b.j) < SettledMemories*tau {
+	if tau := b.memory(); math.IsInf(tau, 1) {
+		return "unsettled: the steps show no restoring force toward a root yet in some coordinate (the run may still be drifting); increase the gain or run longer", true
+	} else if tau > 0 && float64(b.j) < SettledMemories*tau {
 		return fmt.Sprintf("unsettled: the %d averaged iterates span %.3g noise memories (estimated memory %.3g steps at the current gain), %d needed: "+
 			"the run has not yet forgotten its start, so a transient may still be in the average; increase the gain or run longer", b.j, float64(b.j)/tau, tau, SettledMemories), true
 	}
