@@ -63,13 +63,15 @@ type core struct {
 
 	// Inference and tracing, switched on by configure; nil when off.
 	configured bool
-	infWhy     string      // why inf is nil, for the error bars' Why
-	inf        *batchMeans // batch-means error bars of avg
-	prec       *Precision  // stop once the error bars are this tight
-	trace      *Trace      // every-k-th-step record
-	perCall    int         // measurements per step, for the trace
-	lastGain   float64     // a_k of the last applied update
-	lastNorm   float64     // ‖Y_k‖ of the last update (tracing only)
+	infWhy     string         // why inf is nil, for the error bars' Why
+	plan       barsPlan       // what the driver knows about the noise (see barsPlan)
+	rs         *randomScaling // random-scaling error bars, when Inference.Method asks
+	inf        *batchMeans    // batch-means error bars of avg
+	prec       *Precision     // stop once the error bars are this tight
+	trace      *Trace         // every-k-th-step record
+	perCall    int            // measurements per step, for the trace
+	lastGain   float64        // a_k of the last applied update
+	lastNorm   float64        // ‖Y_k‖ of the last update (tracing only)
 }
 
 // vectorKernelMin is the dimension from which step uses gonum's vector
@@ -199,12 +201,22 @@ func (c *core) step(y []float64) error {
 		avg := c.avg[:len(next)]
 		if b := c.inf; b != nil {
 			// The batch sum rides in the averaging loop: one pass over x.
-			sum, ref := b.sum[:len(next)], b.ref[:len(next)]
+			b.gain = a
+			b.noteSlope(next, x)
+			sum, ref, sq := b.sum[:len(next)], b.ref[:len(next)], b.sq[:len(next)]
 			for i, v := range next {
 				avg[i] += (v - avg[i]) * w
-				sum[i] += v - ref[i]
+				dv := v - ref[i]
+				sum[i] += dv
+				sq[i] += dv * dv
+			}
+			if active {
+				b.projected++
 			}
 			b.tick(avg)
+			if c.rs != nil {
+				c.rs.add(avg)
+			}
 		} else {
 			for i, v := range next {
 				avg[i] += (v - avg[i]) * w
@@ -239,10 +251,15 @@ func (c *core) configure(s Settings, perCall int) {
 	switch {
 	case !s.Inference.on():
 		c.infWhy = "inference is off (Inference.Covariance = CovarianceOff)"
+	case c.plan.refuse != "":
+		c.infWhy = c.plan.refuse
 	case nothingAveraged:
 		c.infWhy = fmt.Sprintf("nothing is averaged: the burn-in (Settings.BurnIn = %d) covers the whole step budget (Settings.MaxSteps = %d)", s.BurnIn, s.MaxSteps)
 	default:
 		c.inf = newBatchMeans(d, s.Inference)
+		if s.Inference.Method == MethodRandomScaling {
+			c.rs = newRandomScaling(d, s.Inference.Level)
+		}
 		c.prec = s.Precision
 	}
 	if s.Trace != nil {
@@ -254,10 +271,10 @@ func (c *core) configure(s Settings, perCall int) {
 // bars now meet the precision stop. It costs O(1) on the other steps.
 func (c *core) precise() bool {
 	b := c.inf
-	if c.prec == nil || b == nil || !b.closed || !b.available() {
+	if c.prec == nil || b == nil || !b.closed {
 		return false
 	}
-	return b.precise(c.prec, c.avg, c.nAvg)
+	return c.preciseBars()
 }
 
 // fill copies the core's state into r.
@@ -272,12 +289,14 @@ func (c *core) fill(r *Result) {
 	r.Steps = c.steps
 	r.Active = c.active
 	switch {
+	case c.rs != nil && c.nAvg > 0:
+		r.ErrorBars = c.rs.errorBars(c.avg, c.inf.level, c.inf)
 	case c.inf != nil && c.nAvg > 0:
 		r.ErrorBars = c.inf.errorBars(c.avg, c.nAvg)
 	case c.inf != nil:
 		r.ErrorBars = ErrorBars{Level: c.inf.level, Assumes: batchMeansAssumes, Why: "no iterate has been averaged yet"}
 	case c.infWhy != "":
-		r.ErrorBars = ErrorBars{Why: c.infWhy}
+		r.ErrorBars = ErrorBars{Why: c.infWhy, Deterministic: c.plan.deterministic}
 	default:
 		r.ErrorBars = ErrorBars{Why: "inference is off (Inference.Covariance = CovarianceOff)"}
 	}

@@ -105,6 +105,9 @@ func MinimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Setti
 	}
 	c := newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs)
 	c.trusted = true // a MiniBatch leaves x alone
+	if c.plan, err = planFiniteSum(g, rs); err != nil {
+		return r, err
+	}
 	rng := rand.New(rand.NewPCG(rs.Seed, streamSample))
 	y := make([]float64, d)
 	err = runPullWith(ctx, c, g, y, rng, g.MeasurementsPerCall(), &r, lim)

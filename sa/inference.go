@@ -94,6 +94,31 @@ const DefaultMinBatches = 10
 // estimates: an improved method", Comm. ACM 22(9)). Zhu et al.'s
 // overlapping batches would cost O(d²) on every step, which is why the
 // non-overlapping batches of Chen et al. are used here.
+//
+// # Noise memory
+//
+// The batches must be longer than the time the iterates take to forget:
+// the run estimates that memory from its own steps (see MemoryRatio) and,
+// unless FixedBatches, lengthens the batches and starts the estimate again
+// when they turn out too short. Batch lengths so follow the noise memory
+// of the run and not only the gain's exponent.
+//
+// # Settledness
+//
+// Bars are withheld, with ErrorBars.Unsettled set and the reason in Why,
+// when the averaged stretch spans fewer than SettledMemories noise
+// memories or the batch means drift (a trend test at false-alarm
+// probability TrendFalseAlarm; Geweke 1992 in spirit): in both cases a
+// transient may still be in the average. A precision stop never fires on
+// such bars. Bars are also withheld when the projection was active in more
+// than MaxProjectedShare of the averaged steps, and for deterministic runs
+// (ErrorBars.Deterministic).
+//
+// # Other estimators
+//
+// Method selects the random-scaling statistic of Lee et al. (2022)
+// instead (MethodRandomScaling): available earlier, diagonal only. Which
+// covers better depends on the problem; TestCoverageTable prints both.
 type Inference struct {
 	// Level is the confidence level of the intervals, in (0, 1). 0 means
 	// DefaultLevel (0.95).
@@ -129,6 +154,17 @@ type Inference struct {
 	// before error bars are reported and before a precision stop may fire;
 	// ≥ 2. 0 means DefaultMinBatches (10).
 	MinBatches int
+
+	// FixedBatches keeps the batch ends of BatchScale and BatchExponent
+	// as they are. By default the batches are lengthened (and the batches
+	// so far discarded) when they turn out shorter than MemoryRatio times
+	// the estimated noise memory of the run (see Inference, Noise memory).
+	FixedBatches bool
+
+	// Method chooses the estimator: MethodBatchMeans (the zero value) or
+	// MethodRandomScaling (available earlier; levels 0.90, 0.95, 0.99).
+	// The settledness check runs on the batch means under either.
+	Method Method
 }
 
 // on reports whether inference is on in a resolved Inference.
@@ -151,6 +187,15 @@ func (in Inference) resolve(d int, g schedule.Schedule) (Inference, error) {
 	}
 	if !(in.Level > 0 && in.Level < 1) {
 		return in, settingsErr("Inference.Level = %v: a confidence level must lie strictly between 0 and 1", in.Level)
+	}
+	switch in.Method {
+	case MethodBatchMeans:
+	case MethodRandomScaling:
+		if _, ok := RandomScalingQuantile(in.Level); !ok && in.on() {
+			return in, settingsErr("Inference.Level = %v with MethodRandomScaling: its critical values are known for 0.90, 0.95 and 0.99 only", in.Level)
+		}
+	default:
+		return in, settingsErr("Inference.Method = %d: not a Method", int(in.Method))
 	}
 	if in.BatchExponent == 0 {
 		in.BatchExponent = gainExponent(g)
@@ -263,6 +308,28 @@ type batchMeans struct {
 
 	closed bool    // a batch closed on the last add
 	q      float64 // t quantile for the current M (valid when available)
+
+	// Settledness check (see settled.go): the weighted regression of the
+	// batch means on the log of the batch midpoints, kept as co-moments
+	// about the running means (the same West 1979 update as cov).
+	tbar, ctt float64   // weighted mean of t_m, Σ n_m (t_m − t̄)²
+	ctx       []float64 // Σ n_m (t_m − t̄)(x̄⁽ᵐ⁾ − μ), per coordinate
+	trend     trendVerdict
+
+	// Noise memory (see memory.go): sq is Σ (x_j − ref)² over the current
+	// batch, within the pooled within-batch sum of squares of the complete
+	// batches and wdf its degrees of freedom Σ (n_m − 1).
+	sq, within []float64
+	s0, s1     []float64 // Σ y_k and Σ y_k·(x_k − ref) over the batch, y_k = (x_{k+1} − x_k)/a_k
+	wslope     []float64 // pooled Σ y_k·(x_k − x̄⁽ᵐ⁾) of the complete batches
+	gain       float64   // a_k of the last averaged step
+	wdf        float64
+	done       int  // complete batches folded in since the last restart
+	skip       bool // the current batch is the transient (batch 0): left out
+	fixed      bool // Inference.FixedBatches: never lengthen the batches
+	restarts   int  // times the batches were lengthened
+	projected  int  // averaged iterates that the projection moved
+	closes     int  // batches closed in all (batch 0 and restarts included)
 }
 
 func newBatchMeans(d int, in Inference) *batchMeans {
@@ -275,8 +342,11 @@ func newBatchMeans(d int, in Inference) *batchMeans {
 	if b.full {
 		nc = d * d
 	}
-	buf := make([]float64, 4*d+nc)
-	b.ref, b.sum, b.mu, b.dm, b.cov = buf[:d:d], buf[d:2*d:2*d], buf[2*d:3*d:3*d], buf[3*d:4*d:4*d], buf[4*d:]
+	buf := make([]float64, 10*d+nc)
+	b.ref, b.sum, b.mu, b.dm, b.ctx = buf[:d:d], buf[d:2*d:2*d], buf[2*d:3*d:3*d], buf[3*d:4*d:4*d], buf[4*d:5*d:5*d]
+	b.sq, b.within, b.s0, b.s1, b.wslope = buf[5*d:6*d:6*d], buf[6*d:7*d:7*d], buf[7*d:8*d:8*d], buf[8*d:9*d:9*d], buf[9*d:10*d:10*d]
+	b.cov = buf[10*d:]
+	b.skip, b.fixed = true, in.FixedBatches
 	b.nextEnd = b.end(0, 0)
 	return b
 }
@@ -291,22 +361,20 @@ func (b *batchMeans) end(m, prev int) int {
 }
 
 // batches returns the number of complete batches after batch 0.
-func (b *batchMeans) batches() int {
-	if b.m == 0 {
-		return 0
-	}
-	return b.m - 1
-}
+func (b *batchMeans) batches() int { return b.done }
 
 // available reports whether there are enough batches for error bars.
 func (b *batchMeans) available() bool { return b.batches() >= b.minBatches }
 
 // add feeds the next averaged iterate x; avg is the running mean including
 // x. (The core does the same work fused into its averaging loop.)
-func (b *batchMeans) add(x, avg []float64) {
-	sum, ref := b.sum[:len(x)], b.ref[:len(x)]
+func (b *batchMeans) add(x, prev, avg []float64) {
+	b.noteSlope(x, prev)
+	sum, ref, sq := b.sum[:len(x)], b.ref[:len(x)], b.sq[:len(x)]
 	for i, v := range x {
-		sum[i] += v - ref[i]
+		dv := v - ref[i]
+		sum[i] += dv
+		sq[i] += dv * dv
 	}
 	b.tick(avg)
 }
@@ -326,19 +394,26 @@ func (b *batchMeans) tick(avg []float64) {
 // rollOver closes the current batch (folding it in unless it is batch 0)
 // and starts the next one.
 func (b *batchMeans) rollOver(avg []float64) {
-	if b.m > 0 {
+	if !b.skip {
 		b.closeBatch()
 	}
+	b.skip = false
 	// Start the next batch.
 	b.m++
 	b.nextEnd = b.end(b.m, b.nextEnd)
+	b.checkMemory()
 	copy(b.ref, avg)
 	clear(b.sum)
+	clear(b.sq)
+	clear(b.s0)
+	clear(b.s1)
 	b.count = 0
 	b.closed = true
+	b.closes++
 	if b.available() {
 		b.q = tQuantile(b.batches()-1, b.level)
 	}
+	b.trend = b.checkTrend()
 }
 
 // closeBatch folds the current batch into μ and the scatter matrix (the
@@ -348,11 +423,24 @@ func (b *batchMeans) closeBatch() {
 	wNew := b.w + n
 	f := n * b.w / wNew
 	dm := b.dm
+	// t_m: log of the midpoint of the batch (averaged iterates j−count+1 … j).
+	dt := trendTime(float64(b.j)-(n-1)/2) - b.tbar
 	for i := range dm {
 		dm[i] = b.ref[i] + b.sum[i]/n - b.mu[i]
 		b.mu[i] += dm[i] * n / wNew
+		b.ctx[i] += f * dt * dm[i]
 	}
+	b.ctt += f * dt * dt
+	b.tbar += dt * n / wNew
 	b.w = wNew
+	b.done++
+	if n > 1 {
+		for i, s := range b.sum {
+			b.within[i] += b.sq[i] - s*s/n       // Σ (x_j − x̄)² = Σ (x_j − ref)² − n(x̄ − ref)²
+			b.wslope[i] += b.s1[i] - s/n*b.s0[i] // Σ y_k (x_k − x̄) = Σ y_k (x_k − ref) − (x̄ − ref)·Σ y_k
+		}
+		b.wdf += n - 1
+	}
 	d := b.d
 	if b.full {
 		for i := range d {
@@ -389,6 +477,9 @@ func (b *batchMeans) halfWidths(dst []float64, nAvg int) {
 
 // precise reports whether every half-width meets p (see Precision).
 func (b *batchMeans) precise(p *Precision, avg []float64, nAvg int) bool {
+	if why, _ := b.refusal(); why != "" || b.degenerate() {
+		return false // never stop on bars that are not reported
+	}
 	for i, a := range avg {
 		h := b.q * math.Sqrt(b.variance(i, nAvg))
 		if !(h <= p.Absolute || h <= p.Relative*math.Abs(a)) {
@@ -457,6 +548,20 @@ type ErrorBars struct {
 	Count int
 	// Assumes is a plain statement of what the bars assume.
 	Assumes string
+	// Deterministic reports that the run has no sampling error to put an
+	// interval on: a full batch, a sampler without randomness, or batch
+	// means that are all identical. Available is then false and Why says
+	// which; the error of such a run is an optimisation error.
+	Deterministic bool
+	// Method is the estimator behind the bars (replications report
+	// MethodBatchMeans, meaning a t interval).
+	Method Method
+	// Unsettled reports that the settledness check found a trend in the
+	// batch means: a transient is still in the average, which biases it
+	// and makes the interval too narrow about the wrong point. Available
+	// is then false, Why says which coordinate and the test statistic, and
+	// a precision stop does not fire. See Inference (Settledness).
+	Unsettled bool
 }
 
 // Err returns nil when the error bars are available and an error wrapping
@@ -497,7 +602,15 @@ func (e *ErrorBars) HalfWidthsAt(dst []float64, level float64) ([]float64, error
 	if len(dst) != len(e.StdErr) {
 		return dst, fmt.Errorf("%w: HalfWidthsAt: dst has length %d, the error bars have dimension %d", ErrDimension, len(dst), len(e.StdErr))
 	}
-	q := tQuantile(e.DF, level)
+	q := 0.0
+	if e.Method == MethodRandomScaling {
+		var ok bool
+		if q, ok = RandomScalingQuantile(level); !ok {
+			return dst, settingsErr("HalfWidthsAt: confidence level %v: random-scaling critical values are known for 0.90, 0.95 and 0.99 only", level)
+		}
+	} else {
+		q = tQuantile(e.DF, level)
+	}
 	for i, s := range e.StdErr {
 		dst[i] = q * s
 	}
@@ -507,9 +620,24 @@ func (e *ErrorBars) HalfWidthsAt(dst []float64, level float64) ([]float64, error
 // errorBars builds the error bars of the average avg of nAvg iterates.
 func (b *batchMeans) errorBars(avg []float64, nAvg int) ErrorBars {
 	e := ErrorBars{Level: b.level, Count: b.batches(), Assumes: batchMeansAssumes}
+	// An unsettled run says so first: more batches would not help.
+	if why, unsettled := b.refusal(); why != "" {
+		e.Unsettled = unsettled
+		e.Why = why
+		return e
+	}
 	if !b.available() {
 		e.Why = fmt.Sprintf("%d complete batches after the first, %d needed (batch %d ends at averaged iterate %d, now %d)",
 			b.batches(), b.minBatches, b.m, b.nextEnd, b.j)
+		if b.restarts > 0 {
+			e.Why += fmt.Sprintf("; the batches were lengthened %d times to follow the noise memory of the run (estimated %.3g steps)", b.restarts, b.memory())
+		}
+		return e
+	}
+	if b.degenerate() {
+		e.Deterministic = true
+		e.Why = fmt.Sprintf("the %d batch means are identical in every coordinate: the run shows no sampling error "+
+			"(a deterministic run, or one stuck at a point); a zero-width interval would claim an exact answer", b.batches())
 		return e
 	}
 	d := b.d

@@ -16,6 +16,7 @@ import (
 
 	"github.com/stochroot/stochroot/oracle"
 	"github.com/stochroot/stochroot/sa"
+	"github.com/stochroot/stochroot/schedule"
 )
 
 // shifted measures h(x) = x − 1 + N(0, 1) noise in every coordinate.
@@ -136,7 +137,9 @@ func TestMaxBufferBytesBoundary(t *testing.T) {
 }
 
 func TestHalfWidthsAtBadInput(t *testing.T) {
-	r, err := sa.RobbinsMonro(context.Background(), shifted, []float64{0, 0}, sa.Settings{Gain: gain, MaxSteps: 2000, Seed: 3,
+	// A gain large enough for the 2000 steps to span the SettledMemories
+	// noise memories the bars need (Scale·n^0.4/2 ≈ 50 > 15 for a slope of 1).
+	r, err := sa.RobbinsMonro(context.Background(), shifted, []float64{0, 0}, sa.Settings{Gain: schedule.Power{Scale: 5, Offset: 5, Exponent: 0.6}, MaxSteps: 2000, Seed: 3,
 		Inference: sa.Inference{BatchScale: 1, MinBatches: 2}})
 	if err != nil || !r.ErrorBars.Available {
 		t.Fatalf("setup: %v, available %v", err, r.ErrorBars.Available)

@@ -26,6 +26,7 @@ func TestReferenceBatchMeansFormula(t *testing.T) {
 	rng := rand.New(rand.NewPCG(1, 2))
 	xs := make([][]float64, n)
 	avg := make([]float64, d)
+	prevx := make([]float64, d)
 	for j := range xs {
 		x := []float64{100 + rng.NormFloat64(), -3 + 2*rng.NormFloat64(), 0}
 		x[2] = 0.5*x[0] + rng.NormFloat64()
@@ -33,7 +34,8 @@ func TestReferenceBatchMeansFormula(t *testing.T) {
 		for i := range avg {
 			avg[i] += (x[i] - avg[i]) / float64(j+1)
 		}
-		b.add(x, avg)
+		b.add(x, prevx, avg)
+		prevx = x
 	}
 	// Direct computation.
 	var ends []int
@@ -132,8 +134,8 @@ func TestStepAllocsWithInference(t *testing.T) {
 		if allocs != 0 {
 			t.Errorf("mode %d: %v allocations per step, want 0", mode, allocs)
 		}
-		if c.inf.batches() < 20 || c.trace.every == 3 {
-			t.Errorf("mode %d: %d batches, trace every %d: the loop did not exercise batch closes and thinning", mode, c.inf.batches(), c.trace.every)
+		if c.inf.closes < 20 || c.trace.every == 3 {
+			t.Errorf("mode %d: %d batches, trace every %d: the loop did not exercise batch closes and thinning", mode, c.inf.closes, c.trace.every)
 		}
 	}
 }

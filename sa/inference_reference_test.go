@@ -123,12 +123,17 @@ func TestReferenceBatchMeansCoverage(t *testing.T) {
 	}
 	for _, n := range ns {
 		cover, avail, _ := lsqStudy(t, R, n, 0.6, 11)
-		if avail != R {
-			t.Fatalf("n = %d: %d of %d runs have error bars, want all", n, avail, R)
+		// Runs without bars are those the settledness check marks
+		// unsettled (sa.TrendFalseAlarm = 0.001 per run for a settled run
+		// with independent normal batch means; measured 2 of 400 here,
+		// where the short early batches of SGD are over-dispersed). More
+		// than 1% would mean the check fires on settled runs.
+		if float64(R-avail) > 0.01*float64(R) {
+			t.Fatalf("n = %d: %d of %d runs have error bars, want at least 99%%", n, avail, R)
 		}
-		band := 3 * math.Sqrt(0.95*0.05/float64(R))
+		band := 3 * math.Sqrt(0.95*0.05/float64(avail))
 		for i, c := range cover {
-			p := float64(c) / float64(R)
+			p := float64(c) / float64(avail)
 			t.Logf("n = %d, R = %d: coverage of β_%d = %.4f (band %.4f ± %.4f)", n, R, i+1, p, 0.95, band)
 			if math.Abs(p-0.95) > band {
 				t.Errorf("n = %d: coverage of β_%d = %.4f, want 0.95 ± %.4f", n, i+1, p, band)
