@@ -158,7 +158,9 @@ func TestWorkerProcessKilled(t *testing.T) {
 	}
 	victim := startProc(t, url, "kill", delay, true)
 	others := []*proc{startProc(t, url, "kill", delay, false), startProc(t, url, "kill", delay, false)}
-	v, _ := NewValue(connect(t, url), Settings{Subject: "kill", Timeout: 400 * time.Millisecond, Retries: 3})
+	// The Timeout leaves room for a loaded machine under -race; the killed
+	// worker's request waits it out once before it is re-sent.
+	v, _ := NewValue(connect(t, url), Settings{Subject: "kill", Timeout: 2 * time.Second, Retries: 3})
 	sp, _ := oracle.NewSPSA(v, dim, oracle.SPSASettings{Sizes: sizes, Perturbations: q, Workers: 2 * q})
 	killed := make(chan int, 1)
 	go func() {

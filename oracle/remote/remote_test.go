@@ -230,7 +230,9 @@ func TestMalformedRequestsGetErrorReplies(t *testing.T) {
 // request is re-sent, and the gradients equal the local ones bit for bit.
 func TestLateAndDuplicateRepliesIgnored(t *testing.T) {
 	url := startServer(t)
-	const subject, dim, timeout = "rogue", 2, 300 * time.Millisecond
+	// Long enough that the two honest workers answer within it on a loaded
+	// machine under -race (300 ms was not, once, in CI).
+	const subject, dim, timeout = "rogue", 2, 1500 * time.Millisecond
 	sizes := schedule.PowerSizes{Scale: 0.1, Exponent: 0.101}
 	kwLocal, _ := oracle.NewKieferWolfowitz(noisyBowl(0), dim, oracle.KieferWolfowitzSettings{Sizes: sizes})
 	want := gradients(t, kwLocal, dim, 4)
