@@ -50,36 +50,30 @@ func planFiniteSum(g *oracle.MiniBatch, rs Settings) (barsPlan, error) {
 		p.deterministic = true
 		p.refuse = "deterministic run: sampling.Sequential hands out the items in a fixed order and draws no randomness, " +
 			"so the iterates carry no sampling error and no confidence interval describes their error (use sampling.Uniform for error bars)"
-	case *sampling.Shuffled:
+	case *sampling.Shuffled, *sampling.BlockShuffled:
+		// Both hand out every item once per epoch (BlockShuffled besides
+		// keeps the items of a block together).
+		name := "sampling.Shuffled"
+		if _, ok := g.Sampler().(*sampling.BlockShuffled); ok {
+			name = "sampling.BlockShuffled"
+		}
 		if m == n {
 			p.deterministic = true
 			// strconv, not fmt: fmt's buffer pool allocates at random under
 			// the race detector, which would make run allocations vary.
-			p.refuse = "deterministic run: sampling.Shuffled with batch size " + strconv.Itoa(m) + " = n hands out every item in every batch, " +
+			p.refuse = "deterministic run: " + name + " with batch size " + strconv.Itoa(m) + " = n hands out every item in every batch, " +
 				"so each step uses the exact gradient (up to the order of summation) and the iterates carry no sampling error"
 			break
 		}
-		// Measured (TestCoverageTable, NIST StRD NoInt1, SGD with batch 1):
-		// batch means over batches of whole epochs covered 90 of 194 runs,
-		// random scaling 194 of 194 (not its nominal 95%: the error of the
-		// average does not follow the law it assumes). Neither is a valid
-		// interval; refuse.
-		p.refuse = "sampling.Shuffled (without replacement) with batch size " + strconv.Itoa(m) + " < n = " + strconv.Itoa(n) +
+		// Measured (TestCoverageTable, NIST StRD NoInt1, SGD with batch 1,
+		// Shuffled): batch means over batches of whole epochs covered 90
+		// of 194 runs, random scaling 194 of 194 (not its nominal 95%: the
+		// error of the average does not follow the law it assumes).
+		// Neither is a valid interval; refuse.
+		p.refuse = name + " (without replacement) with batch size " + strconv.Itoa(m) + " < n = " + strconv.Itoa(n) +
 			": the sampling errors of one epoch sum to zero, so the steps are not independent given the past and neither batch means " +
-			"nor random scaling give a valid interval (measured: epoch-aligned batch means covered 46%, random scaling 100% at 95% nominal); " +
-			"use sampling.Uniform for error bars"
-	case *sampling.BlockShuffled:
-		// Without replacement like Shuffled (every item once per epoch),
-		// and besides the items of one block come together.
-		if m == n {
-			p.deterministic = true
-			p.refuse = "deterministic run: sampling.BlockShuffled with batch size " + strconv.Itoa(m) + " = n hands out every item in every batch, " +
-				"so each step uses the exact gradient (up to the order of summation) and the iterates carry no sampling error"
-			break
-		}
-		p.refuse = "sampling.BlockShuffled (without replacement, in blocks) with batch size " + strconv.Itoa(m) + " and n = " + strconv.Itoa(n) +
-			": every item comes once per epoch, so the sampling errors of one epoch sum to zero and the steps are not independent given the past; " +
-			"no estimator here gives a valid interval; use sampling.Uniform for error bars"
+			"nor random scaling give a valid interval (measured with sampling.Shuffled: epoch-aligned batch means covered 46%, " +
+			"random scaling 100% at 95% nominal); use sampling.Uniform for error bars"
 	case *sampling.Uniform:
 		// Independent draws with replacement: the general case.
 	default:
