@@ -68,17 +68,21 @@ type BatchSettings struct {
 // number of workers, which is what makes the reduction the same bit for
 // bit for every worker count.
 //
-// The threshold 2·chunkWork = 2^15 was kept after measuring chunkWork =
-// 2^10, 2^12 and 2^14 with BenchmarkMiniBatchWorkers at d = 100 and 1000,
-// m = 16…1024 (BENCHMARKS.md): on the shared 2-core
-// test machine, with other processes using both cores, every split made a
-// batch slower with 2 workers than with 1 (0.5–0.9×; the second goroutine's
-// thread is descheduled by the operating system while it holds a chunk),
-// and a lower threshold only split more batches. A lower threshold can only
-// be justified by measurements on idle cores; the benchmark reports the
-// ratio to decide.
+// The threshold 2·chunkWork = 2^13 multiply–adds was chosen with
+// BenchmarkMiniBatchWorkers at d = 100 and 1000, m = 16…1024, on the 2-core
+// test machine while it was otherwise idle (load ≈ 1.3; BENCHMARKS.md),
+// against chunkWork = 2^11 and 2^14. With 2^12, 2 workers against 1 gave
+// 1.09–2.07 on every split batch (d = 100, m ≥ 128; d = 1000, all m) and
+// 0.99–1.03 on batches left whole; 2^14 left d = 100, m ≤ 256 and
+// d = 1000, m ≤ 32 unsplit (1.0), and 2^11 split d = 100, m = 64 (1.15–1.41)
+// but made the larger batches slower (d = 1000, m = 256: 1.28–1.53 against
+// 1.82–1.86) through more, smaller chunks. Earlier measurements on the same
+// machine with other processes using both cores found every split slower
+// than one worker (0.5–0.9×: a worker's thread descheduled while it holds
+// a chunk makes the batch wait), hence the caution in the package doc to
+// keep Workers: 1 on an oversubscribed machine.
 const (
-	chunkWork = 1 << 14
+	chunkWork = 1 << 12
 	maxChunks = 64
 )
 
