@@ -99,7 +99,7 @@ const (
 //
 // # Parallel evaluation
 //
-// A batch whose work |B|·Dim() reaches 2^15 multiply–adds is split into
+// A batch whose work |B|·Dim() reaches 2^13 multiply–adds is split into
 // chunks of consecutive batch positions; the chunks are evaluated on up to
 // BatchSettings.Workers goroutines and their partial sums are added in
 // chunk order. The chunks depend only on |B| and Dim(), so Y is the same bit
