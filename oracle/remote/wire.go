@@ -102,14 +102,8 @@ func setBudget(b []byte, budget int64) {
 // enough. It checks the version, the kind, the announced length against
 // MaxDim and the message length before it allocates.
 func decodeRequest(b []byte, r *request, buf []float64) ([]float64, error) {
-	if len(b) < 1 {
-		return buf, fmt.Errorf("%w: empty request", errWire)
-	}
-	if b[0] != WireVersion {
-		return buf, fmt.Errorf("%w: request of wire version %d, this worker reads version %d", errWire, b[0], WireVersion)
-	}
-	if len(b) < requestHeader {
-		return buf, fmt.Errorf("%w: request of %d bytes is shorter than the %d-byte header", errWire, len(b), requestHeader)
+	if err := checkHeader(b, "request", "worker", requestHeader); err != nil {
+		return buf, err
 	}
 	r.kind = b[1]
 	if r.kind != kindValue && r.kind != kindField {
@@ -181,14 +175,8 @@ type reply struct {
 // before it allocates (only an error text is allocated).
 func decodeReply(b []byte, dst []float64) (reply, error) {
 	var r reply
-	if len(b) < 1 {
-		return r, fmt.Errorf("%w: empty reply", errWire)
-	}
-	if b[0] != WireVersion {
-		return r, fmt.Errorf("%w: reply of wire version %d, this driver reads version %d", errWire, b[0], WireVersion)
-	}
-	if len(b) < replyHeader {
-		return r, fmt.Errorf("%w: reply of %d bytes is shorter than the %d-byte header", errWire, len(b), replyHeader)
+	if err := checkHeader(b, "reply", "driver", replyHeader); err != nil {
+		return r, err
 	}
 	le := binary.LittleEndian
 	r.status = b[1]
@@ -218,4 +206,19 @@ func decodeReply(b []byte, dst []float64) (reply, error) {
 	}
 	r.msg = string(b[replyHeader:])
 	return r, nil
+}
+
+// checkHeader checks that message b (a "request" or a "reply", read by
+// the "worker" or the "driver") is not empty, has this package's wire
+// version and holds at least the header's bytes.
+func checkHeader(b []byte, what, reader string, header int) error {
+	switch {
+	case len(b) < 1:
+		return fmt.Errorf("%w: empty %s", errWire, what)
+	case b[0] != WireVersion:
+		return fmt.Errorf("%w: %s of wire version %d, this %s reads version %d", errWire, what, b[0], reader, WireVersion)
+	case len(b) < header:
+		return fmt.Errorf("%w: %s of %d bytes is shorter than the %d-byte header", errWire, what, len(b), header)
+	}
+	return nil
 }
