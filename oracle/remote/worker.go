@@ -124,6 +124,8 @@ func Serve(ctx context.Context, nc *nats.Conn, s WorkerSettings) (Served, error)
 		if m.Reply != "" {
 			busy = appendErrorReply(busy[:0], requestTag(m.Data), statusBusy, "every slot of this worker is busy")
 			_ = m.Respond(busy)
+		} else {
+			counts[2].Add(1) // dropped: no reply subject (see Served.Refused)
 		}
 	})
 	if err == nil {
