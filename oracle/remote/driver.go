@@ -279,6 +279,10 @@ func (c *client) call(ctx context.Context, kind byte, k int, x []float64, s1, s2
 			return fmt.Errorf("%w: %q after %d attempts: %w", ErrUnanswered, c.s.Subject, sent, lastErr)
 		}
 		c.resent.Add(1)
+		// The wait for a free worker counts from this attempt: the time
+		// the last one waited for a worker that vanished is not a sign
+		// that no worker is there.
+		start = time.Now()
 	}
 }
 

@@ -475,3 +475,67 @@ func TestDeadlineReachesWorker(t *testing.T) {
 		t.Errorf("time left on the worker: %v s, %v; want under the run's 1 s", got, err)
 	}
 }
+
+// TestResendAfterTimeoutMayMeetBusyWorkers: a request whose worker vanished
+// (here a member that takes it and never answers) is re-sent after
+// Timeout; a busy answer to the re-sent attempt must not be taken for "no
+// worker at all" because the first attempt already waited Timeout (it was,
+// once, in CI: TestWorkerProcessKilled failed with ErrNoWorker).
+func TestResendAfterTimeoutMayMeetBusyWorkers(t *testing.T) {
+	url := startServer(t)
+	const subject, timeout = "resend", 300 * time.Millisecond
+	// The swallowing member takes one request and never answers.
+	sw := connect(t, url)
+	ssub, err := sw.QueueSubscribeSync(subject, DefaultQueue)
+	if err != nil {
+		t.Fatal(err)
+	}
+	_ = ssub.AutoUnsubscribe(1)
+	if err := sw.Flush(); err != nil {
+		t.Fatal(err)
+	}
+	v, _ := NewValue(connect(t, url), Settings{Subject: subject, Timeout: timeout, Retries: 2})
+	done := make(chan error, 1)
+	var y float64
+	go func() {
+		var err error
+		y, err = v.ValueContext(context.Background(), []float64{1, 2}, rand.New(rand.NewPCG(1, 2)))
+		done <- err
+	}()
+	if _, err := ssub.NextMsg(5 * time.Second); err != nil {
+		t.Fatal(err)
+	}
+	// Only now the answering member joins: it says "busy" to its first
+	// two requests, then measures.
+	ans := connect(t, url)
+	n := 0
+	asub, err := ans.QueueSubscribe(subject, DefaultQueue, func(m *nats.Msg) {
+		var r request
+		if _, err := decodeRequest(m.Data, &r, nil); err != nil {
+			return
+		}
+		if n++; n <= 2 {
+			_ = m.Respond(appendErrorReply(nil, r.tag, statusBusy, "busy"))
+			return
+		}
+		_ = m.Respond(appendReply(nil, r.tag, []float64{42}))
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer asub.Unsubscribe()
+	if err := ans.Flush(); err != nil {
+		t.Fatal(err)
+	}
+	select {
+	case err := <-done:
+		if err != nil || y != 42 {
+			t.Fatalf("got %v, %v; want 42 after a re-send and two busy answers", y, err)
+		}
+	case <-time.After(10 * time.Second):
+		t.Fatal("no answer")
+	}
+	if s := v.Stats(); s.Resent != 1 || s.Busy < 2 {
+		t.Errorf("stats %+v: want 1 re-sent and at least 2 busy", s)
+	}
+}
