@@ -200,15 +200,29 @@ func (c *core) step(y []float64) error {
 		w := 1 / float64(c.nAvg)
 		avg := c.avg[:len(next)]
 		if b := c.inf; b != nil {
-			// The batch sum rides in the averaging loop: one pass over x.
+			// The batch sums and the slope sums of the noise memory
+			// (batchMeans.noteSlope) ride in the averaging loop: one pass.
 			b.gain = a
-			b.noteSlope(next, x)
 			sum, ref, sq := b.sum[:len(next)], b.ref[:len(next)], b.sq[:len(next)]
-			for i, v := range next {
-				avg[i] += (v - avg[i]) * w
-				dv := v - ref[i]
-				sum[i] += dv
-				sq[i] += dv * dv
+			if a > 0 {
+				inv := 1 / a
+				s0, s1, prev := b.s0[:len(next)], b.s1[:len(next)], x[:len(next)]
+				for i, v := range next {
+					avg[i] += (v - avg[i]) * w
+					y := (v - prev[i]) * inv
+					s0[i] += y
+					s1[i] += y * (prev[i] - ref[i])
+					dv := v - ref[i]
+					sum[i] += dv
+					sq[i] += dv * dv
+				}
+			} else {
+				for i, v := range next {
+					avg[i] += (v - avg[i]) * w
+					dv := v - ref[i]
+					sum[i] += dv
+					sq[i] += dv * dv
+				}
 			}
 			if active {
 				b.projected++

@@ -35,6 +35,7 @@ const memoryMinBatches = 3
 
 // noteSlope records the step from prev (x_k) to x (x_{k+1}) taken with
 // gain b.gain, for the slope estimate of memory. It allocates nothing.
+// core.step does the same work fused into its averaging loop.
 func (b *batchMeans) noteSlope(x, prev []float64) {
 	if !(b.gain > 0) {
 		return
