@@ -118,7 +118,7 @@ func Distance(path string, tr *sa.Trace, truth []float64, o Options) error {
 	pl.X.Label.Text = "measurements used"
 	pl.Y.Label.Text = "Euclidean distance"
 	pl.X.Scale, pl.Y.Scale = plot.LogScale{}, plot.LogScale{}
-	pl.X.Tick.Marker, pl.Y.Tick.Marker = plot.LogTicks{Prec: -1}, plot.LogTicks{Prec: -1}
+	pl.X.Tick.Marker, pl.Y.Tick.Marker = logTicks{}, logTicks{}
 	pl.Legend.Top = true
 	if err := addLine(pl, dx, "iterate", 0, false); err != nil {
 		return err
@@ -188,8 +188,8 @@ func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) erro
 	pl.X.Label.Text = "measurements used"
 	pl.Y.Label.Text = fmt.Sprintf("x_%d", i+1)
 	pl.X.Scale = plot.LogScale{}
-	pl.X.Tick.Marker = plot.LogTicks{Prec: -1}
-	pl.Y.Tick.Marker = preciseTicks{}
+	pl.X.Tick.Marker = logTicks{}
+	pl.Y.Tick.Marker = linearTicks{}
 	pl.Legend.Top = true
 	if err := addLine(pl, xs, "iterate", 0, false); err != nil {
 		return err

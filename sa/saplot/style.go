@@ -2,8 +2,6 @@ package saplot
 
 import (
 	"image/color"
-	"math"
-	"strconv"
 
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/plotter"
@@ -73,35 +71,4 @@ func widenLog(a *plot.Axis) {
 	if a.Min == a.Max && a.Min > 0 {
 		a.Min, a.Max = a.Min/10, a.Max*10
 	}
-}
-
-// preciseTicks is plot.DefaultTicks with labels written to as many
-// decimals as the spacing of the major ticks needs, so that close ticks
-// never share a label.
-type preciseTicks struct{}
-
-// Ticks returns the default ticks, relabelled.
-func (preciseTicks) Ticks(lo, hi float64) []plot.Tick {
-	ticks := plot.DefaultTicks{}.Ticks(lo, hi)
-	step := math.Inf(1)
-	prev := math.NaN()
-	for _, t := range ticks {
-		if t.Label == "" {
-			continue
-		}
-		if !math.IsNaN(prev) {
-			step = math.Min(step, t.Value-prev)
-		}
-		prev = t.Value
-	}
-	if math.IsInf(step, 1) || step <= 0 {
-		return ticks
-	}
-	dec := max(0, int(-math.Floor(math.Log10(step)+1e-9)))
-	for k, t := range ticks {
-		if t.Label != "" {
-			ticks[k].Label = strconv.FormatFloat(t.Value, 'f', dec, 64)
-		}
-	}
-	return ticks
 }
