@@ -20,8 +20,6 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"os"
-	"path/filepath"
 
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/plotter"
@@ -75,18 +73,27 @@ func (o Options) size() (vg.Length, vg.Length, error) {
 // distance is > 0 ([ErrNothingToShow]: a run that never left the truth),
 // or the file cannot be written.
 func Distance(path string, tr *sa.Trace, truth []float64, o Options) error {
-	if tr == nil || tr.Len() == 0 {
-		return ErrEmptyTrace
-	}
-	if len(truth) != tr.Dim() {
-		return fmt.Errorf("saplot: truth has length %d, the trace dimension %d", len(truth), tr.Dim())
-	}
-	if err := finiteTruth(truth); err != nil {
-		return err
-	}
-	w, h, err := o.size()
+	f, w, h, err := distanceFigure(tr, truth, o)
 	if err != nil {
 		return err
+	}
+	return save(f, w, h, path)
+}
+
+// distanceFigure builds the plot of [Distance] and returns it with its size.
+func distanceFigure(tr *sa.Trace, truth []float64, o Options) (f *figure, w, h vg.Length, err error) {
+	if tr == nil || tr.Len() == 0 {
+		return nil, 0, 0, ErrEmptyTrace
+	}
+	if len(truth) != tr.Dim() {
+		return nil, 0, 0, fmt.Errorf("saplot: truth has length %d, the trace dimension %d", len(truth), tr.Dim())
+	}
+	if err := finiteTruth(truth); err != nil {
+		return nil, 0, 0, err
+	}
+	w, h, err = o.size()
+	if err != nil {
+		return nil, 0, 0, err
 	}
 	// Only values > 0 and finite have a place on log–log axes.
 	drawable := func(v float64) bool { return v > 0 && !math.IsInf(v, 1) }
@@ -108,30 +115,30 @@ func Distance(path string, tr *sa.Trace, truth []float64, o Options) error {
 		}
 	}
 	if len(dx)+len(da)+len(hw) == 0 {
-		return fmt.Errorf("%w: all %d records of the trace are at distance 0 from the truth (or not finite), and a log–log plot needs values > 0; a run that starts at the truth with noise-free measurements never leaves it", ErrNothingToShow, tr.Len())
+		return nil, 0, 0, fmt.Errorf("%w: all %d records of the trace are at distance 0 from the truth (or not finite), and a log–log plot needs values > 0; a run that starts at the truth with noise-free measurements never leaves it", ErrNothingToShow, tr.Len())
 	}
-	pl := plot.New()
+	f = newFigure()
+	pl := f.pl
 	pl.Title.Text = o.Title
 	if pl.Title.Text == "" {
 		pl.Title.Text = "Distance to the truth"
 	}
 	pl.X.Label.Text = "measurements used"
-	pl.Y.Label.Text = "Euclidean distance"
+	f.yLabel = "Euclidean distance"
 	pl.X.Scale, pl.Y.Scale = plot.LogScale{}, plot.LogScale{}
 	pl.X.Tick.Marker, pl.Y.Tick.Marker = logTicks{}, logTicks{}
-	pl.Legend.Top = true
-	if err := addLine(pl, dx, "iterate", 0, false); err != nil {
-		return err
+	if err := addLine(f, dx, "iterate", 0, false); err != nil {
+		return nil, 0, 0, err
 	}
-	if err := addLine(pl, da, "average", 1, false); err != nil {
-		return err
+	if err := addLine(f, da, "average", 1, false); err != nil {
+		return nil, 0, 0, err
 	}
-	if err := addLine(pl, hw, fmt.Sprintf("‖%g%% half-widths of the average‖", 100*tr.Level()), 2, true); err != nil {
-		return err
+	if err := addLine(f, hw, fmt.Sprintf("‖%g%% half-widths of the average‖", 100*tr.Level()), 2, true); err != nil {
+		return nil, 0, 0, err
 	}
 	widenLog(&pl.X)
 	widenLog(&pl.Y)
-	return save(pl, w, h, path)
+	return f, w, h, nil
 }
 
 // Estimate writes to path a plot of coordinate i of the iterate and of the
@@ -142,21 +149,30 @@ func Distance(path string, tr *sa.Trace, truth []float64, o Options) error {
 // is out of range, truth has the wrong length or a coordinate that is not
 // finite ([ErrBadTruth]), or the file cannot be written.
 func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) error {
-	if tr == nil || tr.Len() == 0 {
-		return ErrEmptyTrace
-	}
-	if i < 0 || i >= tr.Dim() {
-		return fmt.Errorf("saplot: coordinate %d out of range [0, %d)", i, tr.Dim())
-	}
-	if truth != nil && len(truth) != tr.Dim() {
-		return fmt.Errorf("saplot: truth has length %d, the trace dimension %d", len(truth), tr.Dim())
-	}
-	if err := finiteTruth(truth); err != nil {
-		return err
-	}
-	w, h, err := o.size()
+	f, w, h, err := estimateFigure(tr, i, truth, o)
 	if err != nil {
 		return err
+	}
+	return save(f, w, h, path)
+}
+
+// estimateFigure builds the plot of [Estimate] and returns it with its size.
+func estimateFigure(tr *sa.Trace, i int, truth []float64, o Options) (f *figure, w, h vg.Length, err error) {
+	if tr == nil || tr.Len() == 0 {
+		return nil, 0, 0, ErrEmptyTrace
+	}
+	if i < 0 || i >= tr.Dim() {
+		return nil, 0, 0, fmt.Errorf("saplot: coordinate %d out of range [0, %d)", i, tr.Dim())
+	}
+	if truth != nil && len(truth) != tr.Dim() {
+		return nil, 0, 0, fmt.Errorf("saplot: truth has length %d, the trace dimension %d", len(truth), tr.Dim())
+	}
+	if err := finiteTruth(truth); err != nil {
+		return nil, 0, 0, err
+	}
+	w, h, err = o.size()
+	if err != nil {
+		return nil, 0, 0, err
 	}
 	var xs, as, lo, hi plotter.XYs
 	first, last := math.Inf(1), 0.0
@@ -180,19 +196,19 @@ func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) erro
 	if truth != nil {
 		widen(truth[i])
 	}
-	pl := plot.New()
+	f = newFigure()
+	pl := f.pl
 	pl.Title.Text = o.Title
 	if pl.Title.Text == "" {
 		pl.Title.Text = fmt.Sprintf("Estimate of coordinate %d", i+1)
 	}
 	pl.X.Label.Text = "measurements used"
-	pl.Y.Label.Text = fmt.Sprintf("x_%d", i+1)
+	f.yLabel = fmt.Sprintf("x_%d", i+1)
 	pl.X.Scale = plot.LogScale{}
 	pl.X.Tick.Marker = logTicks{}
 	pl.Y.Tick.Marker = linearTicks{}
-	pl.Legend.Top = true
-	if err := addLine(pl, xs, "iterate", 0, false); err != nil {
-		return err
+	if err := addLine(f, xs, "iterate", 0, false); err != nil {
+		return nil, 0, 0, err
 	}
 	if len(lo) > 1 {
 		// The band: upper edge forward, lower edge back.
@@ -203,20 +219,20 @@ func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) erro
 		}
 		band, err := plotter.NewPolygon(ring)
 		if err != nil {
-			return fmt.Errorf("saplot: %w", err)
+			return nil, 0, 0, fmt.Errorf("saplot: %w", err)
 		}
 		band.Color = fade(2)
 		band.LineStyle.Width = 0
 		pl.Add(band)
-		pl.Legend.Add(fmt.Sprintf("%g%% confidence band", 100*tr.Level()), band)
+		f.add(fmt.Sprintf("%g%% confidence band", 100*tr.Level()), band)
 	}
-	if err := addLine(pl, as, "average", 1, false); err != nil {
-		return err
+	if err := addLine(f, as, "average", 1, false); err != nil {
+		return nil, 0, 0, err
 	}
 	if truth != nil {
 		tl := plotter.XYs{{X: first, Y: truth[i]}, {X: last, Y: truth[i]}}
-		if err := addLine(pl, tl, "truth", 3, true); err != nil {
-			return err
+		if err := addLine(f, tl, "truth", 3, true); err != nil {
+			return nil, 0, 0, err
 		}
 	}
 	if len(as) > 0 {
@@ -226,10 +242,10 @@ func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) erro
 		if pad == 0 {
 			pad = 0.1*math.Abs(ymax) + 1e-12
 		}
-		pl.Y.Min, pl.Y.Max = ymin-pad, ymax+4*pad // room for the legend
+		pl.Y.Min, pl.Y.Max = ymin-pad, ymax+pad
 	}
 	widenLog(&pl.X)
-	return save(pl, w, h, path)
+	return f, w, h, nil
 }
 
 // finiteTruth returns an error wrapping ErrBadTruth naming the first
@@ -239,17 +255,6 @@ func finiteTruth(truth []float64) error {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
 			return fmt.Errorf("%w: truth[%d] = %v", ErrBadTruth, i, v)
 		}
-	}
-	return nil
-}
-
-func save(pl *plot.Plot, w, h vg.Length, path string) error {
-	if err := pl.Save(w, h, path); err != nil {
-		return fmt.Errorf("saplot: writing %s: %w", path, err)
-	}
-	// plot.Save reports some failures only through a file left empty.
-	if fi, err := os.Stat(path); err != nil || fi.Size() == 0 {
-		return fmt.Errorf("saplot: writing %s: file missing or empty", filepath.Clean(path))
 	}
 	return nil
 }

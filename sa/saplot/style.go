@@ -30,7 +30,7 @@ func fade(k int) color.Color {
 
 // addLine adds a line in palette colour k (dashed if asked) with a legend
 // entry; an empty series is skipped.
-func addLine(pl *plot.Plot, xys plotter.XYs, name string, k int, dashed bool) error {
+func addLine(f *figure, xys plotter.XYs, name string, k int, dashed bool) error {
 	if len(xys) == 0 {
 		return nil
 	}
@@ -55,12 +55,12 @@ func addLine(pl *plot.Plot, xys plotter.XYs, name string, k int, dashed bool) er
 		sc.GlyphStyle.Color = palette[k]
 		sc.GlyphStyle.Radius = vg.Points(2.5)
 		sc.GlyphStyle.Shape = draw.CircleGlyph{}
-		pl.Add(l, sc)
-		pl.Legend.Add(name, l, sc)
+		f.pl.Add(l, sc)
+		f.add(name, l, sc)
 		return nil
 	}
-	pl.Add(l)
-	pl.Legend.Add(name, l)
+	f.pl.Add(l)
+	f.add(name, l)
 	return nil
 }
 
