@@ -14,7 +14,7 @@ import (
 func TestLegendIsOutsideTheData(t *testing.T) {
 	tr, root := debugTrace(t)
 	for _, size := range [][2]float64{{0, 0}, {8, 6}, {30, 8}} {
-		o := Options{Width: size[0], Height: size[1]}
+		o := Options{Width: size[0], Height: size[1], Quantity: "flow", Unit: "l/min"}
 		dist, w, h, err := distanceFigure(tr, root, o)
 		if err != nil {
 			t.Fatal(err)

@@ -29,12 +29,30 @@ import (
 )
 
 // Options are the optional knobs of a plot. The zero value is a 16 cm ×
-// 10 cm plot with a generated title.
+// 10 cm plot with a generated title and generic axis labels.
 type Options struct {
 	// Title replaces the generated title when not empty.
 	Title string
+	// Quantity names in words what the plotted coordinate measures, for
+	// example "open time of the 500 ml valve". [Estimate] labels its y
+	// axis with it and, when Title is empty, titles the plot
+	// "Estimate of " + Quantity; [Distance] labels its y axis
+	// Quantity + ": Euclidean distance to the truth". Empty means "coordinate i"
+	// (counted from 1) for Estimate and no prefix for Distance.
+	Quantity string
+	// Unit is the unit of the quantity, for example "s" or "ml", added to
+	// the y-axis label in parentheses. Empty adds nothing.
+	Unit string
 	// Width and Height of the image in centimetres; 0 means 16 and 10.
 	Width, Height float64
+}
+
+// yLabel returns the y-axis label: what, then the unit in parentheses.
+func (o Options) yLabel(what string) string {
+	if o.Unit == "" {
+		return what
+	}
+	return what + " (" + o.Unit + ")"
 }
 
 // ErrEmptyTrace reports a nil trace or one without records.
@@ -124,7 +142,11 @@ func distanceFigure(tr *sa.Trace, truth []float64, o Options) (f *figure, w, h v
 		pl.Title.Text = "Distance to the truth"
 	}
 	pl.X.Label.Text = "measurements used"
-	f.yLabel = "Euclidean distance"
+	what := "Euclidean distance to the truth"
+	if o.Quantity != "" {
+		what = o.Quantity + ": " + what
+	}
+	f.yLabel = o.yLabel(what)
 	pl.X.Scale, pl.Y.Scale = plot.LogScale{}, plot.LogScale{}
 	pl.X.Tick.Marker, pl.Y.Tick.Marker = logTicks{}, logTicks{}
 	if err := addLine(f, dx, "iterate", 0, false); err != nil {
@@ -198,12 +220,16 @@ func estimateFigure(tr *sa.Trace, i int, truth []float64, o Options) (f *figure,
 	}
 	f = newFigure()
 	pl := f.pl
+	what := o.Quantity
+	if what == "" {
+		what = fmt.Sprintf("coordinate %d", i+1)
+	}
 	pl.Title.Text = o.Title
 	if pl.Title.Text == "" {
-		pl.Title.Text = fmt.Sprintf("Estimate of coordinate %d", i+1)
+		pl.Title.Text = "Estimate of " + what
 	}
 	pl.X.Label.Text = "measurements used"
-	f.yLabel = fmt.Sprintf("x_%d", i+1)
+	f.yLabel = o.yLabel(what)
 	pl.X.Scale = plot.LogScale{}
 	pl.X.Tick.Marker = logTicks{}
 	pl.Y.Tick.Marker = linearTicks{}

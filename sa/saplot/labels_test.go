@@ -1,0 +1,42 @@
+package saplot
+
+import "testing"
+
+// The y axis carries the quantity and its unit when given, and a plain
+// description (never a bare symbol such as "x_1") when not; a title the
+// caller sets is kept.
+func TestAxisLabels(t *testing.T) {
+	tr, root := debugTrace(t)
+	for _, c := range []struct {
+		o                Options
+		estY, estTitle   string
+		distY, distTitle string
+	}{
+		{Options{}, "coordinate 2", "Estimate of coordinate 2",
+			"Euclidean distance to the truth", "Distance to the truth"},
+		{Options{Quantity: "open time", Unit: "s"}, "open time (s)", "Estimate of open time",
+			"open time: Euclidean distance to the truth (s)", "Distance to the truth"},
+		{Options{Unit: "ml"}, "coordinate 2 (ml)", "Estimate of coordinate 2",
+			"Euclidean distance to the truth (ml)", "Distance to the truth"},
+		{Options{Title: "Line 3", Quantity: "fill"}, "fill", "Line 3",
+			"fill: Euclidean distance to the truth", "Line 3"},
+	} {
+		est, _, _, err := estimateFigure(tr, 1, root, c.o)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if est.yLabel != c.estY || est.pl.Title.Text != c.estTitle {
+			t.Errorf("Estimate %+v: y label %q, title %q; want %q, %q", c.o, est.yLabel, est.pl.Title.Text, c.estY, c.estTitle)
+		}
+		if est.pl.X.Label.Text != "measurements used" {
+			t.Errorf("Estimate: x label %q", est.pl.X.Label.Text)
+		}
+		dist, _, _, err := distanceFigure(tr, root, c.o)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if dist.yLabel != c.distY || dist.pl.Title.Text != c.distTitle {
+			t.Errorf("Distance %+v: y label %q, title %q; want %q, %q", c.o, dist.yLabel, dist.pl.Title.Text, c.distY, c.distTitle)
+		}
+	}
+}
