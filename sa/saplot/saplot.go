@@ -20,6 +20,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"slices"
 
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/plotter"
@@ -89,7 +90,8 @@ func (o Options) size() (vg.Length, vg.Length, error) {
 // returns an error if the trace is empty ([ErrEmptyTrace]), truth has the
 // wrong length or a coordinate that is not finite ([ErrBadTruth]), no
 // distance is > 0 ([ErrNothingToShow]: a run that never left the truth),
-// or the file cannot be written.
+// or the file cannot be written. Options.Quantity and Options.Unit label
+// the y axis; the legend sits above the data area, outside it.
 func Distance(path string, tr *sa.Trace, truth []float64, o Options) error {
 	f, w, h, err := distanceFigure(tr, truth, o)
 	if err != nil {
@@ -155,7 +157,7 @@ func distanceFigure(tr *sa.Trace, truth []float64, o Options) (f *figure, w, h v
 	if err := addLine(f, da, "average", 1, false); err != nil {
 		return nil, 0, 0, err
 	}
-	if err := addLine(f, hw, fmt.Sprintf("‖%g%% half-widths of the average‖", 100*tr.Level()), 2, true); err != nil {
+	if err := addLine(f, hw, fmt.Sprintf("norm of the %g%% half-widths", 100*tr.Level()), 2, true); err != nil {
 		return nil, 0, 0, err
 	}
 	widenLog(&pl.X)
@@ -163,11 +165,19 @@ func distanceFigure(tr *sa.Trace, truth []float64, o Options) (f *figure, w, h v
 	return f, w, h, nil
 }
 
+// iterateShare is the share of the iterate's records over the averaged
+// stretch that the y axis of [Estimate] frames.
+const iterateShare = 0.9
+
 // Estimate writes to path a plot of coordinate i of the iterate and of the
 // average against the measurements used (log scale), with the confidence
 // band of the average where available. If truth is not nil, truth[i] is
 // drawn as a horizontal line. A trace of one record draws one marked point
-// per curve. It returns an error if the trace is empty ([ErrEmptyTrace]), i
+// per curve. Once the trace has averages, the y axis frames the average,
+// its band, the truth and the middle 90% of the iterate's values over the
+// averaged records: the iterate's start-up transient and its rarer
+// excursions run off the frame, the rest is drawn whole. Without averages
+// it frames everything. Options.Quantity and Options.Unit label the y axis. It returns an error if the trace is empty ([ErrEmptyTrace]), i
 // is out of range, truth has the wrong length or a coordinate that is not
 // finite ([ErrBadTruth]), or the file cannot be written.
 func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) error {
@@ -197,6 +207,7 @@ func estimateFigure(tr *sa.Trace, i int, truth []float64, o Options) (f *figure,
 		return nil, 0, 0, err
 	}
 	var xs, as, lo, hi plotter.XYs
+	var averaged []float64 // the iterate where the average exists
 	first, last := math.Inf(1), 0.0
 	ymin, ymax := math.Inf(1), math.Inf(-1) // of the average, band and truth
 	widen := func(v float64) { ymin, ymax = math.Min(ymin, v), math.Max(ymax, v) }
@@ -206,6 +217,7 @@ func estimateFigure(tr *sa.Trace, i int, truth []float64, o Options) (f *figure,
 		xs = append(xs, plotter.XY{X: m, Y: p.X[i]})
 		if p.Average != nil {
 			as = append(as, plotter.XY{X: m, Y: p.Average[i]})
+			averaged = append(averaged, p.X[i])
 			widen(p.Average[i])
 		}
 		if p.HalfWidth != nil {
@@ -262,11 +274,22 @@ func estimateFigure(tr *sa.Trace, i int, truth []float64, o Options) (f *figure,
 		}
 	}
 	if len(as) > 0 {
-		// Frame the average and its band (set after Add, which widens the
-		// axes to every line); the noisier iterate is clipped.
-		pad := 0.1 * (ymax - ymin)
+		// Frame the average, its band, the truth and the middle of the
+		// iterate over the averaged stretch (set after Add, which widens
+		// the axes to every line). Framing only the average would cut the
+		// noisier iterate into vertical slivers; framing all of it would
+		// flatten the band under the start-up transient.
+		slices.Sort(averaged)
+		n := len(averaged)
+		tail := int(float64(n-1) * (1 - iterateShare) / 2)
+		widen(averaged[tail])
+		widen(averaged[n-1-tail])
+		pad := 0.05 * (ymax - ymin)
 		if pad == 0 {
-			pad = 0.1*math.Abs(ymax) + 1e-12
+			pad = 0.1 * math.Abs(ymax)
+		}
+		if pad == 0 {
+			pad = 1
 		}
 		pl.Y.Min, pl.Y.Max = ymin-pad, ymax+pad
 	}

@@ -11,11 +11,19 @@ import (
 
 // palette holds the line colours (dark, readable on white and in grey).
 var palette = []color.RGBA{
-	{R: 0xbb, G: 0xbb, B: 0xbb, A: 0xff}, // iterate: light grey
+	{R: 0xaa, G: 0xaa, B: 0xaa, A: 0xff}, // iterate: grey
 	{R: 0x1f, G: 0x4e, B: 0x9c, A: 0xff}, // average: blue
 	{R: 0xc2, G: 0x41, B: 0x0c, A: 0xff}, // half-widths / band: orange
 	{R: 0x1b, G: 0x7a, B: 0x3a, A: 0xff}, // truth: green
 }
+
+// Line widths. The iterate is the noisy background, drawn thinner and in
+// grey, but at 1 pt so that it stays a line, not a hairline, when printed
+// or scaled down.
+const (
+	lineWidth    = vg.Length(1.6) // points
+	iterateWidth = vg.Length(1)   // points
+)
 
 // fade returns palette colour k at low opacity, for bands.
 func fade(k int) color.Color {
@@ -39,9 +47,9 @@ func addLine(f *figure, xys plotter.XYs, name string, k int, dashed bool) error 
 		return err
 	}
 	l.Color = palette[k]
-	l.Width = vg.Points(1.2)
+	l.Width = lineWidth
 	if k == 0 {
-		l.Width = vg.Points(0.6) // the iterate: background
+		l.Width = iterateWidth
 	}
 	if dashed {
 		l.Dashes = []vg.Length{vg.Points(5), vg.Points(3)}
