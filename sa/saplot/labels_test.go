@@ -31,6 +31,16 @@ func TestAxisLabels(t *testing.T) {
 		if est.pl.X.Label.Text != "measurements used" {
 			t.Errorf("Estimate: x label %q", est.pl.X.Label.Text)
 		}
+		// The y axis as drawn carries a readable number of labels.
+		lab := 0
+		for _, tk := range est.pl.Y.Tick.Marker.Ticks(est.pl.Y.Min, est.pl.Y.Max) {
+			if tk.Label != "" && tk.Value >= est.pl.Y.Min && tk.Value <= est.pl.Y.Max {
+				lab++
+			}
+		}
+		if lab < minLabels || lab > maxLabels {
+			t.Errorf("Estimate: %d labelled y ticks in [%g, %g], want %d to %d", lab, est.pl.Y.Min, est.pl.Y.Max, minLabels, maxLabels)
+		}
 		dist, _, _, err := distanceFigure(tr, root, c.o)
 		if err != nil {
 			t.Fatal(err)

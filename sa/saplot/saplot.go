@@ -268,6 +268,11 @@ func estimateFigure(tr *sa.Trace, i int, truth []float64, o Options) (f *figure,
 		return nil, 0, 0, err
 	}
 	if truth != nil {
+		if first == last {
+			// One point in x: span the decade either side that
+			// widenLog gives the axis, or the line has no length.
+			first, last = first/10, last*10
+		}
 		tl := plotter.XYs{{X: first, Y: truth[i]}, {X: last, Y: truth[i]}}
 		if err := addLine(f, tl, "truth", 3, true); err != nil {
 			return nil, 0, 0, err

@@ -85,6 +85,10 @@ func TestPlotBadInput(t *testing.T) {
 			t.Errorf("%s: error = nil, want an error", name)
 		}
 	}
+	// An unknown format is refused before the file is created.
+	if _, err := os.Stat(filepath.Join(dir, "p.xyz")); !os.IsNotExist(err) {
+		t.Errorf("unknown extension: a file was left behind (%v)", err)
+	}
 	if err := saplot.Distance(ok, nil, root, saplot.Options{}); !errors.Is(err, saplot.ErrEmptyTrace) {
 		t.Errorf("nil trace: error = %v, want ErrEmptyTrace", err)
 	}
