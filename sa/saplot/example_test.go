@@ -56,8 +56,9 @@ func ExampleEstimate() {
 }
 
 // The distance of the iterate and of the average to a known root, on
-// log–log axes, with the y axis named after the quantity and its unit
-// ("valve open times: Euclidean distance to the truth (s)"). A run that
+// log–log axes, titled after the quantity ("Distance of valve open times
+// to the truth") with the unit on the y axis ("distance to the truth
+// (s)"). A run that
 // never leaves the truth has nothing to show on log axes and gets
 // ErrNothingToShow instead of an empty picture.
 func ExampleDistance() {

@@ -13,13 +13,13 @@ func TestAxisLabels(t *testing.T) {
 		distY, distTitle string
 	}{
 		{Options{}, "coordinate 2", "Estimate of coordinate 2",
-			"Euclidean distance to the truth", "Distance to the truth"},
+			"distance to the truth", "Distance to the truth"},
 		{Options{Quantity: "open time", Unit: "s"}, "open time (s)", "Estimate of open time",
-			"open time: Euclidean distance to the truth (s)", "Distance to the truth"},
+			"distance to the truth (s)", "Distance of open time to the truth"},
 		{Options{Unit: "ml"}, "coordinate 2 (ml)", "Estimate of coordinate 2",
-			"Euclidean distance to the truth (ml)", "Distance to the truth"},
+			"distance to the truth (ml)", "Distance to the truth"},
 		{Options{Title: "Line 3", Quantity: "fill"}, "fill", "Line 3",
-			"fill: Euclidean distance to the truth", "Line 3"},
+			"distance to the truth", "Line 3"},
 	} {
 		est, _, _, err := estimateFigure(tr, 1, root, c.o)
 		if err != nil {

@@ -37,9 +37,11 @@ type Options struct {
 	// Quantity names in words what the plotted coordinate measures, for
 	// example "open time of the 500 ml valve". [Estimate] labels its y
 	// axis with it and, when Title is empty, titles the plot
-	// "Estimate of " + Quantity; [Distance] labels its y axis
-	// Quantity + ": Euclidean distance to the truth". Empty means "coordinate i"
-	// (counted from 1) for Estimate and no prefix for Distance.
+	// "Estimate of " + Quantity. [Distance], whose y axis is always
+	// "distance to the truth", titles the plot
+	// "Distance of " + Quantity + " to the truth" when Title is empty.
+	// Empty means "coordinate i" (counted from 1) for Estimate and no
+	// name for Distance.
 	Quantity string
 	// Unit is the unit of the quantity, for example "s" or "ml", added to
 	// the y-axis label in parentheses. Empty adds nothing.
@@ -90,8 +92,10 @@ func (o Options) size() (vg.Length, vg.Length, error) {
 // returns an error if the trace is empty ([ErrEmptyTrace]), truth has the
 // wrong length or a coordinate that is not finite ([ErrBadTruth]), no
 // distance is > 0 ([ErrNothingToShow]: a run that never left the truth),
-// or the file cannot be written. Options.Quantity and Options.Unit label
-// the y axis; the legend sits above the data area, outside it.
+// or the file cannot be written. Options.Quantity goes into the generated
+// title and Options.Unit onto the y axis; a Euclidean distance has one unit
+// only when every coordinate has it, so give a Unit only then. The legend
+// sits above the data area, outside it.
 func Distance(path string, tr *sa.Trace, truth []float64, o Options) error {
 	f, w, h, err := distanceFigure(tr, truth, o)
 	if err != nil {
@@ -142,13 +146,12 @@ func distanceFigure(tr *sa.Trace, truth []float64, o Options) (f *figure, w, h v
 	pl.Title.Text = o.Title
 	if pl.Title.Text == "" {
 		pl.Title.Text = "Distance to the truth"
+		if o.Quantity != "" {
+			pl.Title.Text = "Distance of " + o.Quantity + " to the truth"
+		}
 	}
 	pl.X.Label.Text = "measurements used"
-	what := "Euclidean distance to the truth"
-	if o.Quantity != "" {
-		what = o.Quantity + ": " + what
-	}
-	f.yLabel = o.yLabel(what)
+	f.yLabel = o.yLabel("distance to the truth")
 	pl.X.Scale, pl.Y.Scale = plot.LogScale{}, plot.LogScale{}
 	pl.X.Tick.Marker, pl.Y.Tick.Marker = logTicks{}, logTicks{}
 	if err := addLine(f, dx, "iterate", 0, false); err != nil {
