@@ -142,11 +142,11 @@ func main() {
 		log.Fatal(err)
 	}
 	distPath := filepath.Join(dir, "distance.png")
-	if err := saplot.Distance(distPath, r.Trace, want, saplot.Options{Title: "Valve times: distance to the true setting (s)"}); err != nil {
+	if err := saplot.Distance(distPath, r.Trace, want, saplot.Options{Quantity: "the valve open times", Unit: "s"}); err != nil {
 		log.Fatal(err)
 	}
 	estPath := filepath.Join(dir, "nozzle1.png")
-	if err := saplot.Estimate(estPath, r.Trace, 0, want, saplot.Options{Title: "500 ml nozzle open time (s)"}); err != nil {
+	if err := saplot.Estimate(estPath, r.Trace, 0, want, saplot.Options{Quantity: "500 ml nozzle open time", Unit: "s"}); err != nil {
 		log.Fatal(err)
 	}
 	fmt.Printf("wrote %s, %s and %s\n", csvPath, distPath, estPath)
