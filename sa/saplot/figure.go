@@ -190,11 +190,12 @@ func save(f *figure, w, h vg.Length, path string) error {
 	if err != nil {
 		return fmt.Errorf("saplot: writing %s: %w", path, err)
 	}
-	f.draw(draw.New(c))
+	// Create the file before drawing: an unwritable path fails at once.
 	file, err := os.Create(path)
 	if err != nil {
 		return fmt.Errorf("saplot: writing %s: %w", path, err)
 	}
+	f.draw(draw.New(c))
 	_, err = c.WriteTo(file)
 	if cerr := file.Close(); err == nil {
 		err = cerr
