@@ -170,19 +170,21 @@ func distanceFigure(tr *sa.Trace, truth []float64, o Options) (f *figure, w, h v
 
 // iterateShare is the share of the iterate's records over the averaged
 // stretch that the y axis of [Estimate] frames.
-const iterateShare = 0.9
+const iterateShare = 0.98
 
 // Estimate writes to path a plot of coordinate i of the iterate and of the
 // average against the measurements used (log scale), with the confidence
 // band of the average where available. If truth is not nil, truth[i] is
 // drawn as a horizontal line. A trace of one record draws one marked point
 // per curve. Once the trace has averages, the y axis frames the average,
-// its band, the truth and the middle 90% of the iterate's values over the
-// averaged records: the iterate's start-up transient and its rarer
+// its band, the truth and the middle 98% of the iterate's values over the
+// averaged records: the iterate's start-up transient and its rarest
 // excursions run off the frame, the rest is drawn whole. Without averages
-// it frames everything. Options.Quantity and Options.Unit label the y axis. It returns an error if the trace is empty ([ErrEmptyTrace]), i
-// is out of range, truth has the wrong length or a coordinate that is not
-// finite ([ErrBadTruth]), or the file cannot be written.
+// it frames everything. Options.Quantity and Options.Unit label the y
+// axis; the legend sits above the data area, outside it. It returns an
+// error if the trace is empty ([ErrEmptyTrace]), i is out of range, truth
+// has the wrong length or a coordinate that is not finite ([ErrBadTruth]),
+// or the file cannot be written.
 func Estimate(path string, tr *sa.Trace, i int, truth []float64, o Options) error {
 	f, w, h, err := estimateFigure(tr, i, truth, o)
 	if err != nil {
