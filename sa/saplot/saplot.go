@@ -12,6 +12,10 @@
 //     against the measurements used, with the confidence band of the
 //     average and, when known, the true value.
 //
+// [Options] names the plotted quantity and its unit for the y axis. The
+// legend sits in a strip between the title and the data area, never over
+// the lines; ticks fall on round values.
+//
 // The file format follows the extension of the path: .png, .svg, .pdf,
 // .eps, .jpg, .tif.
 package saplot
