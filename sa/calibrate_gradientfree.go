@@ -124,7 +124,7 @@ func calibrateGradientFree(ctx context.Context, h gradientFree, x0 []float64, rs
 		base = math.Max(base, math.Abs(v))
 	}
 	xp, xm := make([]float64, d), make([]float64, d)
-	lam, lamSE, lamT, bestUp := 0.0, 0.0, 0.0, math.Inf(-1)
+	lam, lamSE, lamT, bestUp := 0.0, 0.0, 0.0, math.Inf(1)
 	bestSE, bestT := 0.0, 0.0
 	values := 0
 	for j := range pilotLevels {
@@ -152,7 +152,11 @@ func calibrateGradientFree(ctx context.Context, h gradientFree, x0 []float64, rs
 		}
 		mean, se := meanSE(q)
 		cal.Pilot = append(cal.Pilot, PilotLevel{Delta: t, Slope: mean, StdErr: se, Pairs: len(q)})
-		if up := mean + 2*se; up > 0 && up > bestUp {
+		// Without a clear level, the cautious curvature is the smallest
+		// upper bound mean + 2se of any level: the curvature is at most
+		// that where it was measured best (the largest bound would be the
+		// noisiest level's, a gain of next to nothing).
+		if up := mean + 2*se; up > 0 && up < bestUp {
 			bestUp, bestSE, bestT = up, se, t
 		}
 		if mean > 0 && (se == 0 || mean/se > pilotT) {
@@ -166,9 +170,9 @@ func calibrateGradientFree(ctx context.Context, h gradientFree, x0 []float64, rs
 	switch {
 	case lam > 0:
 		how = fmt.Sprintf("the curvature along the mean gradient is λ̂ = %.3g ± %.2g (second differences at t = %.3g)", lam, lamSE, lamT)
-	case bestUp > 0:
+	case !math.IsInf(bestUp, 1):
 		lam = bestUp
-		how = fmt.Sprintf("no curvature along the mean gradient stood clear of the noise (t > %g); to be cautious λ̂ = %.3g, the largest the levels allow (mean + 2 × %.2g at t = %.3g), so the gain may be too small: set Settings.Gain if you know better", pilotT, lam, bestSE, bestT)
+		how = fmt.Sprintf("no curvature along the mean gradient stood clear of the noise (t > %g); to be cautious λ̂ = %.3g, the smallest upper bound of the levels (mean + 2 × %.2g at t = %.3g), so the gain may be too small: set Settings.Gain if you know better", pilotT, lam, bestSE, bestT)
 	}
 	dist := base
 	if lam > 0 {

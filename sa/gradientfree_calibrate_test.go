@@ -3,6 +3,7 @@ package sa_test
 import (
 	"context"
 	"errors"
+	"math"
 	"math/rand/v2"
 	"strings"
 	"sync/atomic"
@@ -147,4 +148,75 @@ func TestCalibrationGradientFreeNoBudget(t *testing.T) {
 	if quadLoss(lam, r.Estimate()) > quadLoss(lam, make([]float64, 4)) {
 		t.Errorf("the run ended above its starting loss: %v", r.Estimate())
 	}
+}
+
+// TestCalibrationGradientFreeFailures: a Value that fails during the pilot
+// fails the run with its error, marked as the pilot's, and the Result
+// carries the Calibration so far; a cancelled context stops the pilot; the
+// second differences never probe beyond MaxAbs, nor where the projection
+// would move the point.
+func TestCalibrationGradientFreeFailures(t *testing.T) {
+	lam := []float64{0.5, 1, 2, 4}
+	inner := diagQuadratic(lam, 0.1)
+	bad := errors.New("simulator offline")
+	var n atomic.Int64
+	f := oracle.ValueFunc(func(x []float64, rng *rand.Rand) (float64, error) {
+		if n.Add(1) > 50 {
+			return 0, bad
+		}
+		return inner(x, rng)
+	})
+	c := schedule.PowerSizes{Scale: 0.1, Exponent: schedule.SpallGamma}
+	g, err := oracle.NewSPSA(f, 4, oracle.SPSASettings{Sizes: c})
+	if err != nil {
+		t.Fatal(err)
+	}
+	r, err := sa.RobbinsMonro(context.Background(), g, make([]float64, 4), sa.Settings{MaxMeasurements: 10000})
+	if !errors.Is(err, bad) || !strings.Contains(err.Error(), "calibration pilot") || r.Calibration == nil || r.Steps != 0 {
+		t.Errorf("failing Value: err %v, Calibration %v, %d steps; want the Value's error from the pilot, a Calibration and no step", err, r.Calibration, r.Steps)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	cancel()
+	g2, _ := oracle.NewKieferWolfowitz(inner, 4, oracle.KieferWolfowitzSettings{Sizes: c})
+	if _, err := sa.RobbinsMonro(ctx, g2, make([]float64, 4), sa.Settings{MaxMeasurements: 10000}); !errors.Is(err, context.Canceled) {
+		t.Errorf("cancelled context: err %v, want context.Canceled", err)
+	}
+	// With noise that common random numbers do not cancel (drawn from a
+	// source of the test's own), the pilot's ladder climbs towards t ≈ 1;
+	// it must stop where x0 ± t·u would leave the box [−0.5, 0.5]⁴ (so
+	// t < 1: ‖u‖ = 1 in 4 dimensions has an entry ≥ 1/2), and with MaxAbs
+	// = 1.5 alone (x* = 1) it must take no value beyond 1.5 (the run's
+	// SPSA points x ± c_k·Δ may pass MaxAbs by c_0 = 0.1, never more).
+	own := rand.New(rand.NewPCG(7, 7))
+	var outside atomic.Int64
+	watch := oracle.ValueFunc(func(x []float64, _ *rand.Rand) (float64, error) {
+		for _, v := range x {
+			if math.Abs(v) > 1.6 {
+				outside.Add(1)
+			}
+		}
+		return quadLoss(lam, x) + 0.1*own.NormFloat64(), nil
+	})
+	g3, _ := oracle.NewSPSA(watch, 4, oracle.SPSASettings{Sizes: c})
+	box := sa.Box{Lower: []float64{-0.5, -0.5, -0.5, -0.5}, Upper: []float64{0.5, 0.5, 0.5, 0.5}}
+	r, err = sa.RobbinsMonro(context.Background(), g3, make([]float64, 4), sa.Settings{MaxMeasurements: 4000, Projection: box, Seed: 4})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(r.Calibration.Pilot) == 0 {
+		t.Fatal("no pilot level inside the box")
+	}
+	for _, l := range r.Calibration.Pilot {
+		if l.Delta >= 1 {
+			t.Errorf("box: pilot level at t = %v leaves the box", l.Delta)
+		}
+	}
+	r, err = sa.RobbinsMonro(context.Background(), g3, make([]float64, 4), sa.Settings{MaxMeasurements: 4000, MaxAbs: 1.5, Seed: 4})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if k := outside.Load(); k > 0 {
+		t.Errorf("%d loss values taken beyond MaxAbs + c_0", k)
+	}
+	t.Logf("MaxAbs: %s", r.Calibration.How)
 }
