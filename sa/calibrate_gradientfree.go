@@ -55,7 +55,9 @@ const (
 //   - D̂ = ‖g‖/λ̂, the distance along −g to the minimum of the quadratic
 //     with that curvature (the Cauchy step of trust-region methods;
 //     Nocedal & Wright 2006, Numerical Optimization, §4.1), with ‖g‖² the
-//     unbiased estimate (r‖ḡ‖² − M̂²)/(r − 1).
+//     unbiased estimate (r‖ḡ‖² − M̂²)/(r − 1); with a Box of finite
+//     bounds or a Ball as Settings.Projection, D̂ is instead the paper's
+//     own D_X, the farthest point of the set from x0.
 //
 // The gain is the constant γ = D̂/(M̂·√N) over the N steps left after the
 // pilot, capped at 1/(m·λ̂), half the mean-square stability limit of the
@@ -175,10 +177,16 @@ func calibrateGradientFree(ctx context.Context, h gradientFree, x0 []float64, rs
 		how = fmt.Sprintf("no curvature along the mean gradient stood clear of the noise (t > %g); to be cautious λ̂ = %.3g, the smallest upper bound of the levels (mean + 2 × %.2g at t = %.3g), so the gain may be too small: set Settings.Gain if you know better", pilotT, lam, bestSE, bestT)
 	}
 	dist := base
-	if lam > 0 {
+	distHow := "D̂ = ‖g‖/λ̂"
+	if reach, ok := setReach(x0, rs.Projection); ok {
+		// A bounded set: Nemirovski et al.'s D is the farthest the set
+		// reaches from x0, which the run can never exceed.
+		dist, distHow = reach, "D̂ = the farthest point of the projection's set from x0"
+	} else if lam > 0 {
 		dist = gnorm / lam
 	} else {
 		how = fmt.Sprintf("no positive curvature was found along the mean gradient (is the loss concave there, or x0 outside the region the pilot may probe?), so D̂ falls back to max(1, ‖x0‖∞) = %.3g: set Settings.Gain", base)
+		distHow = "D̂"
 	}
 	cal.Slope = lam
 	// The steps left after the pilot, under every budget the run has.
@@ -198,7 +206,7 @@ func calibrateGradientFree(ctx context.Context, h gradientFree, x0 []float64, rs
 			capped = fmt.Sprintf(", capped at 1/(m·λ̂) = %.3g with m = %.3g (stability)", gamma, m)
 		}
 		cal.Gain = schedule.Constant(gamma)
-		cal.How = fmt.Sprintf("a pilot of %d measurements at x0 found M̂ = %.3g (root mean square of %d gradient estimates) and ‖g‖ ≈ %.3g; %s; so D̂ = ‖g‖/λ̂ = %.3g and the constant step over the N = %d steps left is γ = D̂/(M̂·√N) = %.3g%s, with averaging", cal.PilotMeasurements, mhat, rg, gnorm, how, dist, n, gamma, capped)
+		cal.How = fmt.Sprintf("a pilot of %d measurements at x0 found M̂ = %.3g (root mean square of %d gradient estimates) and ‖g‖ ≈ %.3g; %s; so %s = %.3g and the constant step over the N = %d steps left is γ = D̂/(M̂·√N) = %.3g%s, with averaging", cal.PilotMeasurements, mhat, rg, gnorm, how, distHow, dist, n, gamma, capped)
 		return cal, nil
 	}
 	a := dist / mhat
@@ -207,7 +215,7 @@ func calibrateGradientFree(ctx context.Context, h gradientFree, x0 []float64, rs
 		off = math.Pow(a*m*lam, 2) - 1
 	}
 	cal.Gain = schedule.Power{Scale: a, Offset: off, Exponent: 0.5}
-	cal.How = fmt.Sprintf("a pilot of %d measurements at x0 found M̂ = %.3g (root mean square of %d gradient estimates) and ‖g‖ ≈ %.3g; %s; so D̂ = ‖g‖/λ̂ = %.3g; the run has no step or measurement budget, so the gain is (D̂/M̂)/√(k+1+A) = %.3g/√(k+1+%.3g), with averaging", cal.PilotMeasurements, mhat, rg, gnorm, how, dist, a, off)
+	cal.How = fmt.Sprintf("a pilot of %d measurements at x0 found M̂ = %.3g (root mean square of %d gradient estimates) and ‖g‖ ≈ %.3g; %s; so %s = %.3g; the run has no step or measurement budget, so the gain is (D̂/M̂)/√(k+1+A) = %.3g/√(k+1+%.3g), with averaging", cal.PilotMeasurements, mhat, rg, gnorm, how, distHow, dist, a, off)
 	return cal, nil
 }
 
@@ -235,4 +243,33 @@ func secondPoints(x0, u []float64, t float64, rs Settings, xp, xm []float64) boo
 		}
 	}
 	return true
+}
+
+// setReach returns the largest distance from x0 to a point of the set of a
+// Box with finite bounds or a Ball (the D_X of Nemirovski et al. 2009 for
+// a start x0), and false for other projections or none.
+func setReach(x0 []float64, p Projection) (float64, bool) {
+	switch v := p.(type) {
+	case Box:
+		s := 0.0
+		for i, x := range x0 {
+			d := max(math.Abs(x-v.Lower[i]), math.Abs(v.Upper[i]-x))
+			if math.IsInf(d, 0) || math.IsNaN(d) {
+				return 0, false
+			}
+			s += d * d
+		}
+		return math.Sqrt(s), true
+	case Ball:
+		s := 0.0
+		for i, x := range x0 {
+			c := 0.0
+			if v.Center != nil {
+				c = v.Center[i]
+			}
+			s += (x - c) * (x - c)
+		}
+		return math.Sqrt(s) + v.Radius, true
+	}
+	return 0, false
 }
