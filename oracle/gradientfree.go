@@ -52,6 +52,7 @@ type KieferWolfowitzSettings struct {
 // callers cannot share; they use MeasureContext. A call allocates nothing
 // when Workers is 1 and no other call overlaps it.
 type KieferWolfowitz struct {
+	f     Value
 	dim   int
 	sizes Sizes
 	step  atomic.Int64 // k for Measure, set by SetStep
@@ -69,7 +70,7 @@ func NewKieferWolfowitz(f Value, dim int, s KieferWolfowitzSettings) (*KieferWol
 	if err := checkMemory("dimension", dim, 2*float64(dim)+float64(max(1, min(s.Workers, 2*dim)))*float64(dim)); err != nil {
 		return nil, err
 	}
-	g := &KieferWolfowitz{dim: dim, sizes: s.Sizes}
+	g := &KieferWolfowitz{f: f, dim: dim, sizes: s.Sizes}
 	workers, crn := s.Workers, s.CommonRandomNumbers
 	g.pool.mk = func() *evaluator {
 		e := newEvaluator(f, dim, 2*dim, workers, crn)
@@ -269,6 +270,7 @@ type SPSASettings struct {
 // not overlap it. A call allocates nothing when Workers is 1 and no other
 // call overlaps it.
 type SPSA struct {
+	f     Value
 	dim   int
 	q     int
 	one   bool
@@ -301,7 +303,7 @@ func NewSPSA(f Value, dim int, s SPSASettings) (*SPSA, error) {
 	if err := checkMemory("dimension (times Perturbations)", dim, float64(q)*float64(dim)+float64(m)+float64(max(1, min(s.Workers, m)))*float64(dim)); err != nil {
 		return nil, err
 	}
-	g := &SPSA{dim: dim, q: q, one: s.OneMeasurement, m: m, sizes: s.Sizes}
+	g := &SPSA{f: f, dim: dim, q: q, one: s.OneMeasurement, m: m, sizes: s.Sizes}
 	workers, crn := s.Workers, s.CommonRandomNumbers
 	point := spsaPoint
 	if g.one {

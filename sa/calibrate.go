@@ -22,8 +22,10 @@ type Calibration struct {
 	// Method names the rule, Source the publication it comes from.
 	Method, Source string
 	// Slope is the slope scale the gain was built from: the pilot's
-	// estimate of the mean eigenvalue of the Jacobian (pilot methods), or
-	// the bound on the curvature of the sampled gradient (data methods).
+	// estimate of the mean eigenvalue of the Jacobian (pilot methods), the
+	// curvature of the loss along its mean gradient at x0 (the
+	// Kiefer–Wolfowitz and SPSA adapters), or the bound on the curvature
+	// of the sampled gradient (data methods).
 	Slope float64
 	// RowNormSquared and Curvature are the data measurements of the
 	// regression methods: R² = Σ‖ã_i‖⁴/Σ‖ã_i‖² (ã_i the row with the
@@ -46,7 +48,9 @@ type Calibration struct {
 // PilotLevel is one perturbation size of the calibration pilot: Pairs
 // pairs of measurements at x0 ± Delta·u (u random with entries ±1) gave the
 // slope quotients ⟨h(x0+δu) − h(x0−δu), 2δu⟩/‖2δu‖² with mean Slope and
-// standard error StdErr.
+// standard error StdErr. For the Kiefer–Wolfowitz and SPSA adapters u is
+// the unit mean gradient at x0, and Pairs triples of loss values gave the
+// second differences [f(x0+δu) − 2f(x0) + f(x0−δu)]/δ².
 type PilotLevel struct {
 	Delta, Slope, StdErr float64
 	Pairs                int
@@ -110,6 +114,8 @@ func pilotBudget(rs Settings, perCall, epochMeas int) int {
 // level with some signal gets more pairs first, and the level below the
 // one taken is re-measured in case the field saturates (see the code).
 // The gain is then the Polyak–Juditsky averaged gain (1/ŝ)/(k+1)^0.7.
+// The gradient-free adapters oracle.KieferWolfowitz and oracle.SPSA,
+// whose loss values can be measured, get calibrateGradientFree instead.
 //
 // Its measurements are those of one gradient-like call per point; it
 // probes up to 10⁶·max(1, ‖x0‖∞) from x0 (inside Projection and MaxAbs
@@ -119,6 +125,9 @@ func pilotBudget(rs Settings, perCall, epochMeas int) int {
 // It uses at most maxCalls calls; it returns the calibration, the calls
 // and measurements used, or an oracle error.
 func calibratePilot(ctx context.Context, h oracle.Field, x0 []float64, rs Settings, perCall, maxCalls int) (*Calibration, error) {
+	if gf, ok := h.(gradientFree); ok {
+		return calibrateGradientFree(ctx, gf, x0, rs, perCall, maxCalls)
+	}
 	d := len(x0)
 	rng := rand.New(rand.NewPCG(rs.Seed, streamCalibrate))
 	base := 1.0
