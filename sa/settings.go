@@ -57,15 +57,18 @@ type Settings struct {
 	// its own gain for its budget and report how on Result.Calibration:
 	// MinimizeSum on a ready-made least-squares or logistic model
 	// (oracle.Regression) takes the step from the data (Bach & Moulines
-	// 2013); every other run spends a short pilot, at most a tenth of its
-	// budget and at most 1000 oracle calls, on a slope estimate ŝ and uses
-	// (1/ŝ)/(k+1)^0.7 with averaging (see Calibration). Set a gain yourself
-	// when you know the slope of the field near the root (the right scale
-	// is then about 1/slope), when the pilot's measurements far from x0
-	// are costly or unsafe, when the run must track a moving target (a
-	// constant gain), or when the run is continued from an earlier one.
-	// The push-style tuners still need a gain: a live system cannot be
-	// probed by a pilot at arbitrary distances from its setting.
+	// 2013); runs with the oracle.KieferWolfowitz and oracle.SPSA adapters
+	// take the robust constant step D̂/(M̂·√N) with averaging (Nemirovski,
+	// Juditsky, Lan & Shapiro 2009) from a pilot at x0; every other run
+	// spends a short pilot, at most a tenth of its budget and at most 1000
+	// oracle calls, on a slope estimate ŝ and uses (1/ŝ)/(k+1)^0.7 with
+	// averaging (see Calibration). Pilots count against the budgets. Set a
+	// gain yourself when you know the slope of the field near the root
+	// (the right scale is then about 1/slope), when the pilot's
+	// measurements far from x0 are costly or unsafe, when the run must
+	// track a moving target (a constant gain), or when the run is
+	// continued from an earlier one. The push-style tuners have their own
+	// rule (TunerSettings.Gain).
 	Gain schedule.Schedule
 
 	// MaxSteps is the step budget. 0 means DefaultMaxSteps, unless
