@@ -55,11 +55,12 @@ func MaxSnapshotBytes(d int) int {
 
 // Field names of the snapshot object. Every field is required except
 // previous_measurement, which is present exactly when the tuner's gain is
-// adaptive and has a previous measurement.
+// adaptive and has a previous measurement, and learned_gain, which is
+// present exactly when the tuner learns its gain (nil TunerSettings.Gain).
 var (
 	snapshotFields = []string{
 		"format", "dim", "version", "x", "average", "averaged", "steps", "gain_index",
-		"previous_measurement", "active", "limited", "frozen", "counts",
+		"previous_measurement", "active", "limited", "frozen", "counts", "learned_gain",
 	}
 	snapshotCountFields = []string{
 		"applied", "stale", "frozen", "not_finite", "future", "failed", "after_close", "overrides", "restores",
@@ -68,19 +69,20 @@ var (
 
 // snapshot is the JSON form of a tuner's state, as Snapshot writes it.
 type snapshot struct {
-	Format    int           `json:"format"`
-	Dim       int           `json:"dim"`
-	Version   uint64        `json:"version"`
-	X         []float64     `json:"x"`
-	Average   []float64     `json:"average"`
-	Averaged  int           `json:"averaged"`
-	Steps     int           `json:"steps"`
-	GainIndex int           `json:"gain_index"`
-	PrevY     []float64     `json:"previous_measurement,omitempty"`
-	Active    bool          `json:"active"`
-	Limited   bool          `json:"limited"`
-	Frozen    bool          `json:"frozen"`
-	Counts    snapshotCount `json:"counts"`
+	Format    int              `json:"format"`
+	Dim       int              `json:"dim"`
+	Version   uint64           `json:"version"`
+	X         []float64        `json:"x"`
+	Average   []float64        `json:"average"`
+	Averaged  int              `json:"averaged"`
+	Steps     int              `json:"steps"`
+	GainIndex int              `json:"gain_index"`
+	PrevY     []float64        `json:"previous_measurement,omitempty"`
+	Active    bool             `json:"active"`
+	Limited   bool             `json:"limited"`
+	Frozen    bool             `json:"frozen"`
+	Counts    snapshotCount    `json:"counts"`
+	Learned   *snapshotLearned `json:"learned_gain,omitempty"`
 }
 
 type snapshotCount struct {
@@ -119,6 +121,7 @@ func (t *Tuner) snapshot() snapshot {
 			Future: s.Future, Failed: s.Failed, AfterClose: s.AfterClose,
 			Overrides: s.Overrides, Restores: s.Restores,
 		},
+		Learned: t.learn.snapshot(),
 	}
 }
 
@@ -173,6 +176,9 @@ func (t *Tuner) Restore(data []byte) error {
 		X: s.X, Average: s.Average, NAvg: s.Averaged, Steps: s.Steps, GainIdx: s.GainIndex,
 		Prev: s.PrevY, Active: s.Active, Limited: s.Limited,
 	})
+	if t.learn != nil {
+		t.learn.restore(s.Learned)
+	}
 	t.version++
 	t.barrier = t.version
 	t.frozen = s.Frozen
@@ -319,7 +325,7 @@ func (t *Tuner) decodeSnapshot(data []byte) (*snapshot, error) {
 	if format != SnapshotFormat {
 		return nil, snapErr("format %d: this build reads format %d", format, SnapshotFormat)
 	}
-	if err := checkFields(m, "snapshot", snapshotFields, "previous_measurement"); err != nil {
+	if err := checkFields(m, "snapshot", snapshotFields, "previous_measurement", "learned_gain"); err != nil {
 		return nil, err
 	}
 	s := &snapshot{Format: format}
@@ -372,6 +378,17 @@ func (t *Tuner) decodeSnapshot(data []byte) (*snapshot, error) {
 	c := &s.Counts
 	for i, dst := range []*uint64{&c.Applied, &c.Stale, &c.Frozen, &c.NotFinite, &c.Future, &c.Failed, &c.AfterClose, &c.Overrides, &c.Restores} {
 		if *dst, err = snapshotCounter(cm, "counts.", snapshotCountFields[i]); err != nil {
+			return nil, err
+		}
+	}
+	_, hasLearned := m["learned_gain"]
+	switch {
+	case hasLearned && t.learn == nil:
+		return nil, snapErr("field \"learned_gain\" is present, but the tuner's gain is set (a learned gain needs a nil TunerSettings.Gain)")
+	case !hasLearned && t.learn != nil:
+		return nil, snapErr("field \"learned_gain\" is missing, and the tuner learns its gain (nil TunerSettings.Gain)")
+	case hasLearned:
+		if s.Learned, err = decodeLearned(m["learned_gain"], s.Steps, t.learn); err != nil {
 			return nil, err
 		}
 	}

@@ -37,11 +37,62 @@ var (
 // Gain is a default stated in the field's comment. NewTuner copies what it
 // keeps; later changes to the caller's slices have no effect.
 type TunerSettings struct {
-	// Gain is the gain sequence a_k; required. A constant gain
-	// (schedule.Constant) tracks a drifting target; a decreasing gain with
-	// averaging (schedule.Power, Exponent in (1/2, 1)) converges on a fixed
-	// one.
+	// Gain is the gain sequence a_k. A constant gain (schedule.Constant)
+	// tracks a drifting target; a decreasing gain with averaging
+	// (schedule.Power, Exponent in (1/2, 1)) converges on a fixed one.
+	//
+	// # Learned gain (nil Gain)
+	//
+	// A tuner of dimension 1 may leave Gain nil if it sets MaxChange, the
+	// largest move per report the live system tolerates (in the
+	// parameter's own units, which its owner knows even when the slope of
+	// the response is unknown). The tuner then learns its gain from the
+	// reports:
+	//
+	//   - Warm-up. Each report moves the parameter by a_k·Y_k with
+	//     a_k = MaxChange/max|Y| over the reports so far (this one
+	//     included), so no move exceeds MaxChange and none is clamped.
+	//     Meanwhile the slope s of the field is estimated by least squares
+	//     of Y on the parameter each report was taken at (Lai & Robbins
+	//     1979, "Adaptive design and stochastic approximation", Ann.
+	//     Statist. 7(6): the slope learned from the procedure's own design
+	//     points; Venter 1967, "An extension of the Robbins–Monro
+	//     procedure", Ann. Math. Statist. 38(1), for learning the slope
+	//     during the run). Reports more than 31 versions old count for the
+	//     update but not for the slope.
+	//   - The warm-up ends once at least LearnedMinReports reports give a
+	//     slope ŝ with t = ŝ/SE(ŝ) > LearnedSlopeT. With Memory = 0 the
+	//     gain then decreases, a_k = (1/ŝ)/(j+1)^0.7 (j steps since the
+	//     warm-up, ŝ the latest clear estimate), the Polyak–Ruppert average
+	//     restarts (so the warm-up is not in it; BurnIn still applies from
+	//     step 0), and the average converges on a fixed target with the
+	//     optimal variance whatever the error in ŝ (Polyak & Juditsky 1992,
+	//     Theorem 2). With Memory = M > 0 the gain stays constant,
+	//     a = 1/(ŝ·M): the parameter follows a drifting target with a time
+	//     constant of about M reports, and the slope estimate forgets with
+	//     a window of 100·M reports.
+	//   - Every move stays clamped to MaxChange after the warm-up too (the
+	//     first moves at 1/ŝ can be large; clamped moves bias the iterate
+	//     until the gain has decayed), and the Projection still applies.
+	//   - A slope that comes out clearly negative (t < −LearnedSlopeT)
+	//     means the sign convention of Y is reversed: the tuner refuses
+	//     every later report with ErrSlopeSign and does not move.
+	//
+	// Tuner.LearnedGain shows the slope, the phase and the gain in use,
+	// and the snapshot carries the learner's state. The cautions of a live
+	// system hold as for a set gain: bound the parameter with a Box, watch
+	// it (OnUpdate, LearnedGain), and keep a manual override (Freeze,
+	// Override). A nil Gain is refused for dimension > 1: the gain would
+	// need the d×d Jacobian, and reports taken at the system's own
+	// parameters move mostly along its slowest directions, so a regression
+	// cannot resolve the Jacobian without deliberate perturbations of the
+	// live system; set the gain there.
 	Gain schedule.Schedule
+
+	// Memory applies to a learned gain (nil Gain) only: 0 makes the gain
+	// decrease after the warm-up (a fixed target), M > 0 keeps it at
+	// 1/(ŝ·M) (a target that drifts; a time constant of about M reports).
+	Memory int
 
 	// Projection, if not nil, is applied after every update and bounds the
 	// published parameter; use a Box. A live system should always have
@@ -84,8 +135,18 @@ type TunerSettings struct {
 // resolve validates s for dimension d and returns the copy with defaults
 // filled in and the caller's slices copied.
 func (s TunerSettings) resolve(d int) (TunerSettings, error) {
+	if s.Memory < 0 {
+		return s, settingsErr("TunerSettings.Memory = %d: must be ≥ 0", s.Memory)
+	}
 	if s.Gain == nil {
-		return s, settingsErr("TunerSettings.Gain is nil: a gain schedule is required, for example schedule.Constant(0.05)")
+		if d != 1 {
+			return s, settingsErr("TunerSettings.Gain is nil at dimension %d: a learned gain is offered for dimension 1 only (it would need the %d×%d Jacobian, which reports taken at the system's own parameters do not resolve without deliberate perturbations of the live system); set a gain, for example schedule.Constant(0.05)", d, d, d)
+		}
+		if s.MaxChange == nil {
+			return s, settingsErr("TunerSettings.Gain is nil and MaxChange is nil: a learned gain needs MaxChange, the largest move per report the system tolerates, to bound its warm-up")
+		}
+	} else if s.Memory != 0 {
+		return s, settingsErr("TunerSettings.Memory = %d with a Gain set: Memory applies to a learned gain (nil Gain) only", s.Memory)
 	}
 	if v, ok := s.Gain.(schedule.Validator); ok {
 		if err := v.Validate(); err != nil {
@@ -114,6 +175,9 @@ func (s TunerSettings) resolve(d int) (TunerSettings, error) {
 			}
 		}
 		s.MaxChange = append([]float64(nil), s.MaxChange...)
+		if s.Gain == nil && math.IsInf(s.MaxChange[0], 1) {
+			return s, settingsErr("TunerSettings.Gain is nil and MaxChange[0] = +Inf: a learned gain needs a finite MaxChange to bound its warm-up")
+		}
 	}
 	// The projections of this package are copied (a pointer to one is
 	// replaced by a copy of its value), so that the caller's slices do not
@@ -309,6 +373,7 @@ type Tuner struct {
 	frozen  bool
 	closed  bool
 	stats   TunerStats
+	learn   *learner // learned gain (nil Gain), or nil
 }
 
 // NewTuner returns a tuner that starts at x0 (copied) with version 0. It
@@ -329,12 +394,19 @@ func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
 	if err := checkInside("x0", x0, rs.Projection, rs.MaxAbs, ErrSettings); err != nil {
 		return nil, err
 	}
+	gain := rs.Gain
+	var learn *learner
+	if gain == nil {
+		learn = newLearner(rs.MaxChange[0], rs.Memory)
+		gain = learn
+	}
 	t := &Tuner{
 		d:      d,
 		stride: (d + 7) &^ 7,
-		c:      newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs),
+		c:      newCore(x0, gain, rs.BurnIn, rs.Projection, rs.MaxAbs),
 		set:    rs,
 		ybuf:   make([]float64, d),
+		learn:  learn,
 	}
 	t.c.maxChange = rs.MaxChange
 	if rs.MaxLag != CurrentOnly {
@@ -355,6 +427,9 @@ func (t *Tuner) publish() {
 		vals[j].Store(math.Float64bits(x))
 	}
 	t.cur.Store(v)
+	if t.learn != nil {
+		t.learn.remember(v, t.c.x[0])
+	}
 }
 
 // fresh reports whether a copy of version v's slot made before loading
@@ -454,6 +529,12 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 		count1(&t.stats.Failed)
 		return Rejected, &StepError{Step: k, Err: fmt.Errorf("%w: the step counter has reached MaxSnapshotCount = 2⁵³, past which no gain is defined; restore a snapshot with fewer steps or build a new tuner", ErrGain)}
 	}
+	if l := t.learn; l != nil {
+		if err := l.prepare(version, y[0], k); err != nil {
+			count1(&t.stats.Failed)
+			return Rejected, &StepError{Step: k, Err: err}
+		}
+	}
 	copy(t.ybuf, y)
 	if err := t.step(); err != nil {
 		if errors.Is(err, ErrNotFinite) {
@@ -462,6 +543,12 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 			count1(&t.stats.Failed)
 		}
 		return Rejected, err
+	}
+	if l := t.learn; l != nil {
+		l.commit(k)
+		if l.pendingRestart {
+			t.restartAverage()
+		}
 	}
 	t.version++
 	t.publish()
