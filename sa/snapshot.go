@@ -178,6 +178,14 @@ func (t *Tuner) Restore(data []byte) error {
 	})
 	if t.learn != nil {
 		t.learn.restore(s.Learned)
+		t.bars.ok = t.learn.phase == phaseLearned && t.learn.memory == 0
+		if !t.bars.ok && t.learn.memory == 0 {
+			t.bars.stop("learned gain: the error bars start when the warm-up ends (the average restarts there)")
+		}
+	}
+	t.bars.restored(s.Averaged)
+	if t.track != nil {
+		t.track.restart()
 	}
 	t.version++
 	t.barrier = t.version

@@ -89,6 +89,12 @@ type TunerSettings struct {
 	// live system; set the gain there.
 	Gain schedule.Schedule
 
+	// Inference configures the error bars of the Polyak–Ruppert average
+	// (Tuner.ErrorBars): Level (0.90, 0.95 or 0.99; 0 means 0.95) and
+	// Covariance (CovarianceOff switches them off). Method is ignored: a
+	// tuner always uses random scaling (see Tuner.ErrorBars for why).
+	Inference Inference
+
 	// Memory applies to a learned gain (nil Gain) only: 0 makes the gain
 	// decrease after the warm-up (a fixed target), M > 0 keeps it at
 	// 1/(ŝ·M) (a target that drifts; a time constant of about M reports).
@@ -374,6 +380,10 @@ type Tuner struct {
 	closed  bool
 	stats   TunerStats
 	learn   *learner // learned gain (nil Gain), or nil
+
+	bars     *tunerBars  // error bars of the average
+	track    *trackNoise // tracking noise (constant gains), or nil
+	trackWhy string      // why track is nil
 }
 
 // NewTuner returns a tuner that starts at x0 (copied) with version 0. It
@@ -407,6 +417,18 @@ func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
 		set:    rs,
 		ybuf:   make([]float64, d),
 		learn:  learn,
+	}
+	if t.bars, err = newTunerBars(d, rs, learn != nil); err != nil {
+		return nil, err
+	}
+	_, constant := rs.Gain.(schedule.Constant)
+	switch {
+	case constant || (learn != nil && rs.Memory > 0):
+		t.track = newTrackNoise(d)
+	case learn != nil:
+		t.trackWhy = "the learned gain decreases (TunerSettings.Memory = 0): the parameter converges rather than tracks; ErrorBars describe the average"
+	default:
+		t.trackWhy = "the gain is not constant (schedule.Constant, or a learned gain with Memory > 0): ErrorBars describe the average of a decreasing gain"
 	}
 	t.c.maxChange = rs.MaxChange
 	if rs.MaxLag != CurrentOnly {
@@ -536,6 +558,8 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 		}
 	}
 	copy(t.ybuf, y)
+	t.bars.before(t.c)
+	nAvg, projected := t.c.nAvg, t.c.projected
 	if err := t.step(); err != nil {
 		if errors.Is(err, ErrNotFinite) {
 			count1(&t.stats.NotFinite)
@@ -544,11 +568,15 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 		}
 		return Rejected, err
 	}
+	t.bars.after(t.c, t.c.nAvg != nAvg, t.c.projected != projected)
 	if l := t.learn; l != nil {
 		l.commit(k)
-		if l.pendingRestart {
-			t.restartAverage()
+		if l.pendingSwitch {
+			t.warmUpEnded()
 		}
+	}
+	if t.track != nil {
+		t.track.add(t.c.x)
 	}
 	t.version++
 	t.publish()
@@ -610,6 +638,10 @@ func (t *Tuner) Override(x []float64) error {
 		return err
 	}
 	t.c.override(x)
+	t.bars.averageRestarted()
+	if t.track != nil {
+		t.track.restart()
+	}
 	t.version++
 	t.barrier = t.version
 	t.publish()

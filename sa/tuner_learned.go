@@ -57,26 +57,25 @@ const (
 // written under the tuner's lock.
 type learner struct {
 	// Regression state (in the snapshot).
-	w, mx, my      float64 // total weight, weighted means of x and y
-	sxx, sxy, syy  float64 // co-moments about the means
-	ymax           float64 // largest |Y| seen
-	phase          int
-	switchStep     int     // core step at which the warm-up ended
-	slope          float64 // slope in use after the warm-up (last clear estimate)
-	wrongSign      bool    // the slope came out clearly negative
-	maxChange      float64 // TunerSettings.MaxChange[0]
-	memory         int     // TunerSettings.Memory
-	forget         float64 // weight kept per report (1: no forgetting)
-	hist           [learnedHistory]float64
-	histOK         [learnedHistory]uint64 // version+1 stored in hist slot (0 = empty)
-	pending        float64                // the gain for the step being applied
-	pendingUse     bool                   // the report pairs with a known parameter
-	pendingX       float64
-	pendingY       float64
-	pendingYmax    float64
-	pendingSwitch  bool
-	pendingSlope   float64
-	pendingRestart bool
+	w, mx, my     float64 // total weight, weighted means of x and y
+	sxx, sxy, syy float64 // co-moments about the means
+	ymax          float64 // largest |Y| seen
+	phase         int
+	switchStep    int     // core step at which the warm-up ended
+	slope         float64 // slope in use after the warm-up (last clear estimate)
+	wrongSign     bool    // the slope came out clearly negative
+	maxChange     float64 // TunerSettings.MaxChange[0]
+	memory        int     // TunerSettings.Memory
+	forget        float64 // weight kept per report (1: no forgetting)
+	hist          [learnedHistory]float64
+	histOK        [learnedHistory]uint64 // version+1 stored in hist slot (0 = empty)
+	pending       float64                // the gain for the step being applied
+	pendingUse    bool                   // the report pairs with a known parameter
+	pendingX      float64
+	pendingY      float64
+	pendingYmax   float64
+	pendingSwitch bool
+	pendingSlope  float64
 }
 
 func newLearner(maxChange float64, memory int) *learner {
@@ -147,7 +146,7 @@ func (l *learner) prepare(v uint64, y float64, k int) error {
 	x, use := l.at(v)
 	l.pendingUse, l.pendingX, l.pendingY = use, x, y
 	l.pendingYmax = math.Max(l.ymax, math.Abs(y))
-	l.pendingSwitch, l.pendingRestart = false, false
+	l.pendingSwitch = false
 	slope, se, n := l.estimate(use, x, y)
 	t := slope / se
 	l.pendingSlope = l.slope
@@ -168,7 +167,6 @@ func (l *learner) prepare(v uint64, y float64, k int) error {
 	phase := l.phase
 	if phase == phaseWarmUp && sure {
 		l.pendingSwitch = true
-		l.pendingRestart = l.memory == 0
 		phase = phaseLearned
 	}
 	switch {
@@ -237,13 +235,21 @@ func (t *Tuner) LearnedGain() (g LearnedGain, ok bool) {
 	}, true
 }
 
-// restartAverage starts the Polyak–Ruppert average again from the next
-// iterate (at the end of a learned gain's warm-up), keeping the
-// projection flags of the step just applied; mu is held.
-func (t *Tuner) restartAverage() {
+// warmUpEnded is called after the step that ended a learned warm-up; mu
+// is held. With a decreasing gain the Polyak–Ruppert average and its
+// error bars start again from the next iterate (the projection flags of
+// the step just applied are kept); with a constant one (Memory > 0) the
+// tracking noise starts again, the gain having changed.
+func (t *Tuner) warmUpEnded() {
+	if t.learn.memory > 0 {
+		t.track.restart()
+		return
+	}
 	active, limited := t.c.active, t.c.limited
 	t.c.override(t.c.x)
 	t.c.active, t.c.limited = active, limited
+	t.bars.ok = true
+	t.bars.restart()
 }
 
 // snapshotLearned is the JSON form of a learned gain's state (the
