@@ -252,7 +252,7 @@ const (
 	RestoreUpdate
 )
 
-// Update describes one change of the published parameter, for
+// Update describes one change of the parameter, for
 // TunerSettings.OnUpdate.
 type Update struct {
 	Kind    UpdateKind // what changed the parameter
@@ -341,19 +341,30 @@ const (
 //
 // # Publication
 //
-// Published values live in a ring of 8 preallocated slots; version v is in
-// slot v mod 8, and every change publishes exactly the next version. The
-// writer stores the new values into their slot (atomically, number by
-// number) and then stores the new current version. A reader loads the
-// current version v, copies slot v mod 8, and loads the current version
-// again: if it is below v+7, the writer cannot yet have started to
-// overwrite that slot (it writes version v+8 only after publishing v+7, and
-// Go's atomic operations are sequentially consistent), so the copy is
-// exactly version v; otherwise the reader starts over. Publishing therefore
-// costs d+1 atomic stores and no allocation (an atomic pointer to a fresh
-// immutable value would allocate once per update), readers never block
-// the writer or each other, and a reader retries only when 7 updates
-// happen while it copies d numbers.
+// Published values live in a ring of 8 preallocated slots; publication p
+// (counted from 0) goes to slot p mod 8. The writer stores the d values
+// into their slot (atomically, number by number) and then stores one word
+// that holds both the version and the slot number (version·8 + slot). A
+// reader loads that word, copies the slot, and loads the word again: if
+// the version has grown by less than 7, fewer than 7 publications have
+// happened since (each raises the version by at least 1), and the writer
+// rewrites a slot only at the 8th publication after it (Go's atomic
+// operations are sequentially consistent), so the copy is exactly what
+// was published; otherwise the reader starts over. Publishing costs d+1
+// atomic stores and no allocation (an atomic pointer to a fresh immutable
+// value would allocate once per update, and a reused buffer written
+// without atomics would race with a slow reader), readers never block the
+// writer or each other, and a reader retries only when the version grows
+// by 7 while it copies d numbers.
+//
+// While reports queue up for the update lock, the tuner publishes once
+// per queue rather than once per update: a report that finds others
+// waiting leaves the publication to the last of them (every report that
+// leaves the lock publishes if nobody is waiting). A reader can then see
+// a parameter some updates old — at most as many as there were reports
+// in the queue — together with its own version, so the staleness rule
+// still measures the true lag; the hook (OnUpdate) still sees every
+// update. A lone reporter publishes every update.
 //
 // # Concurrency
 //
@@ -366,24 +377,29 @@ type Tuner struct {
 	d      int
 	stride int // distance between slots in vals (cache-line multiple)
 
-	cur  atomic.Uint64   // current published version
-	vals []atomic.Uint64 // Float64bits of the published values, ring slots of stride numbers
+	cur  atomic.Uint64   // version·8 + slot of the current publication (see Publication)
+	vals []atomic.Uint64 // ring slots of stride numbers: Float64bits of the values
+
+	waiting atomic.Int32 // reports waiting for mu (see Publication)
 
 	mu      sync.Mutex
+	pubs    uint64 // number of the last publication, written under mu
+	pending bool   // version has not been published yet
 	c       *core
 	set     TunerSettings
 	maxLag  uint64
 	ybuf    []float64
-	version uint64 // == cur, written under mu
+	version uint64 // current version (published unless pending), written under mu
 	barrier uint64 // reports before this version are stale
 	frozen  bool
 	closed  bool
 	stats   TunerStats
 	learn   *learner // learned gain (nil Gain), or nil
 
-	bars     *tunerBars  // error bars of the average
-	track    *trackNoise // tracking noise (constant gains), or nil
-	trackWhy string      // why track is nil
+	bars      *tunerBars  // error bars of the average
+	track     *trackNoise // tracking noise (constant gains), or nil
+	trackWhy  string      // why track is nil
+	trackSkip int         // reports since the last one track read
 }
 
 // NewTuner returns a tuner that starts at x0 (copied) with version 0. It
@@ -417,6 +433,7 @@ func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
 		set:    rs,
 		ybuf:   make([]float64, d),
 		learn:  learn,
+		pubs:   ^uint64(0), // the first publication is number 0
 	}
 	if t.bars, err = newTunerBars(d, rs, learn != nil); err != nil {
 		return nil, err
@@ -439,24 +456,48 @@ func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
 	return t, nil
 }
 
-// publish stores the core's iterate as version t.version, which must be
-// the previous version plus one (or 0 for the first). Called with mu held
-// (or before the tuner is shared).
+// publish stores the core's iterate with its version t.version as the
+// next publication. Called with mu held (or before the tuner is shared,
+// for the first publication, number 0).
 func (t *Tuner) publish() {
 	v := t.version
-	vals := t.vals[int(v&ringMask)*t.stride:][:t.d]
+	p := t.pubs + 1
+	slot := t.vals[int(p&ringMask)*t.stride:][:t.d]
 	for j, x := range t.c.x {
-		vals[j].Store(math.Float64bits(x))
+		slot[j].Store(math.Float64bits(x))
 	}
-	t.cur.Store(v)
+	t.cur.Store(v<<3 | p&ringMask)
+	t.pubs = p
+	t.pending = false
 	if t.learn != nil {
 		t.learn.remember(v, t.c.x[0])
 	}
 }
 
-// fresh reports whether a copy of version v's slot made before loading
-// now as the current version is exactly version v (see Publication).
-func fresh(v, now uint64) bool { return now-v < ring-1 }
+// lockReport takes the update lock for Report, counting the report as
+// waiting while the lock is busy (see Publication).
+func (t *Tuner) lockReport() {
+	if t.mu.TryLock() {
+		return
+	}
+	t.waiting.Add(1)
+	t.mu.Lock()
+	t.waiting.Add(-1)
+}
+
+// unlockReport publishes a pending update unless other reports wait for
+// the lock (the last of them publishes), and releases the lock.
+func (t *Tuner) unlockReport() {
+	if t.pending && t.waiting.Load() == 0 {
+		t.publish()
+	}
+	t.mu.Unlock()
+}
+
+// fresh reports whether a copy of the slot published with the word c,
+// made before loading now as the current word, is exactly what was
+// published (see Publication).
+func fresh(c, now uint64) bool { return now>>3-c>>3 < ring-1 }
 
 // Dim returns the dimension of the parameter.
 func (t *Tuner) Dim() int { return t.d }
@@ -470,13 +511,13 @@ func (t *Tuner) Param(dst []float64) (version uint64) {
 		panic("sa: Tuner.Param: len(dst) differs from the tuner's dimension")
 	}
 	for {
-		v := t.cur.Load()
-		vals := t.vals[int(v&ringMask)*t.stride:][:t.d]
+		c := t.cur.Load()
+		slot := t.vals[int(c&ringMask)*t.stride:][:t.d]
 		for j := range dst {
-			dst[j] = math.Float64frombits(vals[j].Load())
+			dst[j] = math.Float64frombits(slot[j].Load())
 		}
-		if fresh(v, t.cur.Load()) {
-			return v
+		if fresh(c, t.cur.Load()) {
+			return c >> 3
 		}
 	}
 }
@@ -488,10 +529,10 @@ func (t *Tuner) Param1() (x float64, version uint64) {
 		panic("sa: Tuner.Param1 on a tuner of dimension other than 1")
 	}
 	for {
-		v := t.cur.Load()
-		x = math.Float64frombits(t.vals[int(v&ringMask)*t.stride].Load())
-		if fresh(v, t.cur.Load()) {
-			return x, v
+		c := t.cur.Load()
+		x = math.Float64frombits(t.vals[int(c&ringMask)*t.stride].Load())
+		if fresh(c, t.cur.Load()) {
+			return x, c >> 3
 		}
 	}
 }
@@ -517,8 +558,8 @@ func (t *Tuner) Param1() (x float64, version uint64) {
 // the OnUpdate hook comes after the update: the update stands (published
 // and counted as Applied) and the panic reaches the caller.
 func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
-	t.mu.Lock()
-	defer t.mu.Unlock()
+	t.lockReport()
+	defer t.unlockReport()
 	if t.closed {
 		count1(&t.stats.AfterClose)
 		return Rejected, ErrClosed
@@ -528,7 +569,7 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 		return Rejected, fmt.Errorf("%w: measurement has length %d, tuner dimension %d", ErrDimension, len(y), t.d)
 	}
 	for i, v := range y {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
+		if v-v != 0 { // NaN or ±Inf
 			count1(&t.stats.NotFinite)
 			return Rejected, fmt.Errorf("%w: Y[%d] = %v (version %d)", ErrNotFinite, i, v, version)
 		}
@@ -558,7 +599,10 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 		}
 	}
 	copy(t.ybuf, y)
-	t.bars.before(t.c)
+	bars := t.bars.bm != nil
+	if bars {
+		t.bars.before(t.c)
+	}
 	nAvg, projected := t.c.nAvg, t.c.projected
 	if err := t.step(); err != nil {
 		if errors.Is(err, ErrNotFinite) {
@@ -568,7 +612,9 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 		}
 		return Rejected, err
 	}
-	t.bars.after(t.c, t.c.nAvg != nAvg, t.c.projected != projected)
+	if bars {
+		t.bars.after(t.c, t.c.nAvg != nAvg, t.c.projected != projected)
+	}
 	if l := t.learn; l != nil {
 		l.commit(k)
 		if l.pendingSwitch {
@@ -576,10 +622,16 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 		}
 	}
 	if t.track != nil {
-		t.track.add(t.c.x)
+		if t.trackSkip++; t.trackSkip == TrackingStride {
+			t.trackSkip = 0
+			t.track.add(t.c.x)
+		}
 	}
 	t.version++
-	t.publish()
+	t.pending = true
+	if t.waiting.Load() == 0 {
+		t.publish() // before the hook, which may call Param
+	}
 	t.stats.Applied++
 	if h := t.set.OnUpdate; h != nil {
 		h(Update{
@@ -595,15 +647,19 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 // an adaptive gain's Advance) happens before the core commits anything (see
 // core.step), so the report is not applied: it is counted as Failed and
 // the panic goes on to Report's caller, which releases the lock on the way.
-func (t *Tuner) step() (err error) {
-	done := false
-	defer func() {
-		if !done {
-			count1(&t.stats.Failed)
-		}
-	}()
-	err = t.c.step(t.ybuf)
-	done = true
+//
+// The count is taken before the step and given back after it returns, so
+// that no deferred call is needed on the hot path (a panic skips the give
+// back); a counter already at its cap is left alone.
+func (t *Tuner) step() error {
+	capped := t.stats.Failed >= MaxSnapshotCount
+	if !capped {
+		t.stats.Failed++
+	}
+	err := t.c.step(t.ybuf)
+	if !capped {
+		t.stats.Failed--
+	}
 	return err
 }
 
@@ -641,6 +697,7 @@ func (t *Tuner) Override(x []float64) error {
 	t.bars.averageRestarted()
 	if t.track != nil {
 		t.track.restart()
+		t.trackSkip = 0
 	}
 	t.version++
 	t.barrier = t.version

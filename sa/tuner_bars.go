@@ -199,8 +199,13 @@ func (t *Tuner) ErrorBars() ErrorBars {
 // the part of the spread that the block means absorb (τ = (1+ρ)/(1−ρ) is
 // the integrated autocorrelation time of an AR(1) sequence with the lag-1
 // autocorrelation ρ measured in the same blocks; common practice), and L
-// grows to the next power of two above 2·TrackingBlockMemories·τ (and the
+// grows to the next power of two above 1.5·TrackingBlockMemories·τ (and the
 // blocks start again) whenever L < TrackingBlockMemories·τ.
+//
+// The estimate reads every TrackingStride-th iterate (a subsampled AR(1)
+// sequence is again AR(1), with the same stationary variance), which keeps
+// its cost per report to a counter; Memory and Block are converted back to
+// reports.
 //
 // What it does not contain: the bias of the iterate (for example the
 // second-order offset of a quantile under a constant gain, see
@@ -215,7 +220,8 @@ type TrackingNoise struct {
 	// coordinate i of the parameter.
 	Spread []float64
 	// Memory is the largest estimated integrated autocorrelation time τ
-	// of the coordinates, in reports: about 2/(a·s) for a small a·s.
+	// of the coordinates, in reports (TrackingStride times that of the
+	// subsampled sequence): about 2/(a·s) for a small a·s.
 	Memory float64
 	// Block is the block length L in reports; Blocks the number of
 	// blocks behind Spread (TrackingBlocks when available).
@@ -233,7 +239,9 @@ const (
 	// TrackingBlockMemories is the least block length, in estimated
 	// memories τ, for the spread to be reported.
 	TrackingBlockMemories = 20
-	trackingFirstBlock    = 64
+	// TrackingStride: the estimate reads every TrackingStride-th iterate.
+	TrackingStride     = 8
+	trackingFirstBlock = 64
 )
 
 // trackNoise is the on-line estimate behind TrackingNoise.
@@ -312,10 +320,10 @@ func (tn *trackNoise) close() {
 	tn.n = 0
 	if tn.done >= TrackingBlocks {
 		if tau := tn.memory(); tau*TrackingBlockMemories > float64(tn.L) && tn.L < math.MaxInt32 {
-			// The next power of two that spans twice the memories (a
-			// margin, so that the noise in τ̂ does not lengthen the blocks
-			// again; at most 2³¹; an infinite τ doubles L).
-			for tn.L < math.MaxInt32 && float64(tn.L) < 2*tau*TrackingBlockMemories {
+			// The next power of two that spans 1.5 times the memories
+			// needed (a margin, so that the noise in τ̂ does not lengthen
+			// the blocks again; at most 2³¹; an infinite τ doubles L).
+			for tn.L < math.MaxInt32 && float64(tn.L) < 1.5*tau*TrackingBlockMemories {
 				tn.L *= 2
 				if math.IsInf(tau, 1) {
 					break
@@ -352,16 +360,16 @@ func (tn *trackNoise) memory() float64 {
 
 // noise returns the current TrackingNoise.
 func (tn *trackNoise) noise() TrackingNoise {
-	r := TrackingNoise{Block: tn.L, Blocks: min(tn.done, TrackingBlocks)}
+	r := TrackingNoise{Block: tn.L * TrackingStride, Blocks: min(tn.done, TrackingBlocks)}
 	if tn.done < TrackingBlocks {
-		r.Why = fmt.Sprintf("%d of %d blocks of %d reports complete", tn.done, TrackingBlocks, tn.L)
+		r.Why = fmt.Sprintf("%d of %d blocks of %d reports complete", tn.done, TrackingBlocks, tn.L*TrackingStride)
 		if tn.grown > 0 {
 			r.Why += fmt.Sprintf(" (the blocks were lengthened %d times to span %d memories of the parameter)", tn.grown, TrackingBlockMemories)
 		}
 		return r
 	}
 	tau := tn.memory()
-	r.Memory = tau
+	r.Memory = tau * TrackingStride
 	if math.IsInf(tau, 1) {
 		r.Why = "the parameter shows no restoring force within the blocks (it drifts): no stationary spread to report"
 		return r

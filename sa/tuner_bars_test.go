@@ -118,7 +118,7 @@ func TestReferenceTrackingNoise(t *testing.T) {
 		a = 0.01
 	)
 	vInf := a * p * (1 - p) / 2
-	R, n := 8, 100_000
+	R, n := 8, 150_000
 	if os.Getenv("STOCHROOT_LONG_TESTS") == "1" {
 		R = 40
 	}
