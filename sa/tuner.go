@@ -438,6 +438,9 @@ func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
 	if t.bars, err = newTunerBars(d, rs, learn != nil); err != nil {
 		return nil, err
 	}
+	if learn != nil && rs.Memory == 0 {
+		t.bars.refuse(learnedBarsRefused)
+	}
 	_, constant := rs.Gain.(schedule.Constant)
 	switch {
 	case constant || (learn != nil && rs.Memory > 0):
