@@ -226,7 +226,7 @@ func (t *Tuner) ErrorBars() ErrorBars {
 // the part of the spread that the block means absorb (τ = (1+ρ)/(1−ρ) is
 // the integrated autocorrelation time of an AR(1) sequence with the lag-1
 // autocorrelation ρ measured in the same blocks; common practice), and L
-// grows to the next power of two above 1.5·TrackingBlockMemories·τ (and the
+// grows to the next power of two above 3·TrackingBlockMemories·τ (and the
 // blocks start again) whenever L < TrackingBlockMemories·τ.
 //
 // The estimate reads every TrackingStride-th iterate (a subsampled AR(1)
@@ -347,10 +347,12 @@ func (tn *trackNoise) close() {
 	tn.n = 0
 	if tn.done >= TrackingBlocks {
 		if tau := tn.memory(); tau*TrackingBlockMemories > float64(tn.L) && tn.L < math.MaxInt32 {
-			// The next power of two that spans 1.5 times the memories
-			// needed (a margin, so that the noise in τ̂ does not lengthen
-			// the blocks again; at most 2³¹; an infinite τ doubles L).
-			for tn.L < math.MaxInt32 && float64(tn.L) < 1.5*tau*TrackingBlockMemories {
+			// The next power of two that spans 3 times the memories
+			// needed: a margin, because τ̂ from blocks too short comes out
+			// low (the block means absorb part of the correlation) and the
+			// noise in τ̂ must not lengthen the blocks again (at most 2³¹;
+			// an infinite τ doubles L).
+			for tn.L < math.MaxInt32 && float64(tn.L) < 3*tau*TrackingBlockMemories {
 				tn.L *= 2
 				if math.IsInf(tau, 1) {
 					break
