@@ -140,7 +140,7 @@ func ExampleSetpointTuner_learnedGain() {
 	fmt.Printf("error bars available: %v\n", s.Tuner().ErrorBars().Available)
 
 	// Output:
-	// warm-up ended after 32 reports; slope in use 1e-05 per entry
-	// average 46058 entries (true 46052)
+	// warm-up ended after 32 reports; slope in use 1.1e-05 per entry
+	// average 46055 entries (true 46052)
 	// error bars available: false
 }

@@ -35,6 +35,11 @@ import (
 // moves θ 99 times as far as a hit: bound the step with
 // TunerSettings.MaxChange and θ with a Box.
 //
+// With a nil Gain (and MaxChange set) the tuner learns its gain (see
+// TunerSettings.Gain); its warm-up gain is MaxChange/max(P, 1−P) from the
+// first report, so a miss moves θ up by MaxChange and a hit down by
+// MaxChange·min(P, 1−P)/max(P, 1−P).
+//
 // A decreasing gain
 // a_k = c/(k+1+A)^α, α in (1/2, 1), with the Polyak–Ruppert average
 // (Tuner.Average) estimates a fixed quantile with the variance
@@ -67,6 +72,13 @@ func NewQuantileTuner(p, x0 float64, s TunerSettings) (*QuantileTuner, error) {
 		return nil, err
 	}
 	t.bars.refuse(quantileBarsRefused)
+	if t.learn != nil {
+		// Y is −P or 1−P: the warm-up gain starts from the largest |Y|
+		// there will be, not from the first one seen (a first hit with
+		// |Y| = 1−P = 0.01 would make the first moves 99 times too bold,
+		// each still within MaxChange but all in one direction).
+		t.learn.ymax = max(p, 1-p)
+	}
 	return &QuantileTuner{t: t, p: p}, nil
 }
 

@@ -71,9 +71,14 @@ type TunerSettings struct {
 	//     a = 1/(ŝ·M): the parameter follows a drifting target with a time
 	//     constant of about M reports, and the slope estimate forgets with
 	//     a window of 100·M reports.
-	//   - Every move stays clamped to MaxChange after the warm-up too (the
-	//     first moves at 1/ŝ can be large; clamped moves bias the iterate
-	//     until the gain has decayed), and the Projection still applies.
+	//   - After the warm-up too the gain never exceeds the warm-up gain
+	//     MaxChange/max|Y|, so no move exceeds MaxChange and none is
+	//     clamped (clamped moves would bias the iterate: for P = 0.99 a
+	//     miss cut short against hits at full size settles at another
+	//     quantile). MaxChange is therefore also the largest gain the tuner
+	//     may use: set it to the largest move the system tolerates, not
+	//     smaller, or the tuner is slow. One outlying |Y| lowers that bound
+	//     for good. The Projection still applies.
 	//   - A slope that comes out clearly negative (t < −LearnedSlopeT)
 	//     means the sign convention of Y is reversed: the tuner refuses
 	//     every later report with ErrSlopeSign and does not move.

@@ -32,10 +32,6 @@ const (
 	// the optimal asymptotic variance whatever the scale (Polyak &
 	// Juditsky 1992, Theorem 2); 0.7 is common practice.
 	learnedExponent = 0.7
-	// learnedGainCap bounds the learned gain after the warm-up by this
-	// many warm-up gains MaxChange/max|Y| (so that |a·Y| stays far from
-	// overflow; the move is clamped to MaxChange anyway).
-	learnedGainCap = 1e6
 	// learnedHistory is the number of recent published parameters kept
 	// to pair a report with the parameter it was taken at (a power of two).
 	learnedHistory = 32
@@ -185,9 +181,12 @@ func (l *learner) prepare(v uint64, y float64, k int) error {
 		}
 		l.pending = 1 / (l.pendingSlope * math.Pow(float64(j+1), learnedExponent))
 	}
-	// A slope estimate near 0 (or a crafted snapshot) must not give a gain
-	// whose step overflows: cap it at learnedGainCap warm-up gains.
-	l.pending = min(l.pending, learnedGainCap*warm)
+	// The gain never exceeds the warm-up gain, so no move exceeds
+	// MaxChange and none is clamped: clamped moves bias the iterate (for a
+	// quantile with P = 0.99 a miss clamped to MaxChange against hits at
+	// full size puts the equilibrium at another quantile), and a slope
+	// estimate near 0 cannot give a step that overflows.
+	l.pending = min(l.pending, warm)
 	return nil
 }
 

@@ -29,6 +29,9 @@ func runCache(t *testing.T, r float64, s TunerSettings, n int, seed uint64) (*Se
 	var last, biggest float64
 	first := true
 	s.OnUpdate = func(u Update) {
+		if u.Limited && s.Gain == nil {
+			t.Errorf("step %d: a learned gain's move was clamped by MaxChange", u.Step)
+		}
 		if !first {
 			biggest = math.Max(biggest, math.Abs(u.X[0]-last))
 		}
@@ -63,7 +66,7 @@ func runCache(t *testing.T, r float64, s TunerSettings, n int, seed uint64) (*Se
 // r(1−r)/1000 the binomial variance of a batch's hit rate at the root and
 // n the number of averaged iterates; 4 such standard errors (a normal
 // deviate beyond 4 has probability 6e-5; fixed seed). The test also checks
-// that no move exceeded MaxChange, and that the guessed gain a new user
+// that no move exceeded MaxChange or was clamped by it, and that the guessed gain a new user
 // would try (scale 1, the same exponent) is nowhere near the root after
 // the same reports: the problem needs the scale the learned gain finds.
 func TestReferenceLearnedGainSetpoint(t *testing.T) {
