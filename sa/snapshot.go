@@ -29,7 +29,9 @@ const MaxSnapshotCount = 1 << 53
 // significant digits in fixed notation below 10⁻⁵; the exponent form
 // "-1.2345678901234567e-308" has 24), so 64 bytes a number leave room for
 // the separator and an indented layout. The fixed fields (14 integers of
-// at most 20 digits, three booleans and the names) take under 700 bytes.
+// at most 20 digits, three booleans and the names) take under 700 bytes,
+// and the learned_gain object of a learned gain (8 numbers, 1 integer, 2
+// booleans and their names) under 450 more.
 const (
 	snapshotHeaderBytes = 4096
 	snapshotNumberBytes = 64
@@ -100,7 +102,10 @@ type snapshotCount struct {
 // Snapshot returns the whole state of the tuner as JSON: format version,
 // dimension, published version (for logs), parameter, Polyak–Ruppert average, step
 // counter and gain index (and the last measurement of an adaptive gain),
-// the frozen flag and the counters. Settings are not part of it: they come
+// the frozen flag and the counters, and for a learned gain (nil
+// TunerSettings.Gain) the learner's state: the least-squares sums, the
+// largest |Y|, the phase and the slope in use. The error bars' and the
+// tracking noise's state are not in it (see Tuner.ErrorBars). Settings are not part of it: they come
 // from the code that builds the tuner. A tuner built with the same settings
 // and restored from the snapshot continues exactly as this one would.
 func (t *Tuner) Snapshot() ([]byte, error) {
@@ -152,7 +157,13 @@ func (t *Tuner) snapshot() snapshot {
 //     projection's set (the rule of Override, wrapped in ErrSnapshot);
 //   - an average beyond MaxAbs or, for a Box or Ball (convex sets, which
 //     hold the mean of their points), outside the set, beyond a relative
-//     rounding slack of 10⁻¹².
+//     rounding slack of 10⁻¹²;
+//   - a learned_gain object when the gain is set, or none when it is
+//     learned; in it, a number that is not finite, a weight outside
+//     [0, steps] (or above the forgetting window), negative sums of
+//     squares, sxy² > sxx·syy, a negative max_abs_y, a switch step or
+//     slope during the warm-up, or after it a slope ≤ 0 or a switch step
+//     not below steps.
 //
 // Restore after Close returns ErrClosed. A panic in the projection (while
 // checking the parameter) changes nothing; a panic in the OnUpdate hook
