@@ -61,7 +61,12 @@ type TunerSettings struct {
 	//     during the run). Reports more than 31 versions old count for the
 	//     update but not for the slope.
 	//   - The warm-up ends once at least LearnedMinReports reports give a
-	//     slope ŝ with t = ŝ/SE(ŝ) > LearnedSlopeT. With Memory = 0 the
+	//     slope ŝ with t = ŝ/SE(ŝ) > LearnedSlopeT. That takes a few dozen
+	//     reports when the start is far from the target; from a start near
+	//     it (or for a quantile, whose slope, the density at the quantile,
+	//     shows only through the parameter's own wobble) it can take
+	//     thousands (15 000 requests in examples/timeouttuner), all of them
+	//     at the warm-up gain. With Memory = 0 the
 	//     gain then decreases, a_k = (1/ŝ)/(j+1)^0.7 (j steps since the
 	//     warm-up, ŝ the latest clear estimate), the Polyak–Ruppert average
 	//     restarts (so the warm-up is not in it; BurnIn still applies from
@@ -502,6 +507,10 @@ func (t *Tuner) unlockReport() {
 	t.mu.Unlock()
 }
 
+// The word holds the version in its upper 61 bits: a tuner would need
+// 2⁶¹ changes (73 years at 10⁹ a second) to overflow it, and its step
+// counter stops at MaxSnapshotCount = 2⁵³ long before.
+//
 // fresh reports whether a copy of the slot published with the word c,
 // made before loading now as the current word, is exactly what was
 // published (see Publication).
