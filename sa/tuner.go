@@ -376,11 +376,20 @@ const (
 // still measures the true lag; the hook (OnUpdate) still sees every
 // update. A lone reporter publishes every update.
 //
+// # Gain, error bars and tracking noise
+//
+// A tuner of dimension 1 may learn its gain (nil TunerSettings.Gain; see
+// there for the warm-up, the bound on every move and LearnedGain).
+// ErrorBars gives an interval for the Polyak–Ruppert average where the
+// package's coverage check backs it (a hand-set decreasing gain on a Tuner
+// or SetpointTuner), and says why not elsewhere; TrackingNoise gives the
+// stationary spread of the parameter under a constant gain.
+//
 // # Concurrency
 //
 // All methods are safe for concurrent use. Param and Param1 take no lock.
-// Report, Override, Restore, Freeze, Resume, Close, Snapshot, Average and
-// Stats serialise on one mutex: updates are sequential by nature, each
+// Report, Override, Restore, Freeze, Resume, Close, Snapshot, Average,
+// Stats, ErrorBars, TrackingNoise and LearnedGain serialise on one mutex: updates are sequential by nature, each
 // starting from the last, and the critical section is a few dozen
 // nanoseconds for a small dimension.
 type Tuner struct {
