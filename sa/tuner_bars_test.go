@@ -233,7 +233,8 @@ func TestReferenceTrackingNoise(t *testing.T) {
 }
 
 // TestTunerBarsAvailability checks when the bars and the tracking noise
-// are withheld, and that Override and Restore restart them.
+// are withheld, and that Override and Restore restart them (the bars'
+// state is not in the snapshot).
 func TestTunerBarsAvailability(t *testing.T) {
 	c := newTestTuner(t, []float64{0}, TunerSettings{Gain: schedule.Constant(0.1)})
 	if eb := c.ErrorBars(); eb.Available || eb.Why == "" {
@@ -266,6 +267,19 @@ func TestTunerBarsAvailability(t *testing.T) {
 	}
 	if _, err := NewTuner([]float64{0}, TunerSettings{Gain: schedule.Constant(1), Inference: Inference{Level: 0.8}}); err == nil {
 		t.Errorf("Level 0.8 accepted; random scaling knows 0.90, 0.95, 0.99 only")
+	}
+	for range 60_000 {
+		x, v := c.Param1()
+		c.Report1(v, x-1+rng.NormFloat64())
+	}
+	if tn := c.TrackingNoise(); !tn.Available {
+		t.Fatalf("tracking noise after 60 000 reports at a·s = 0.1: %s", tn.Why)
+	}
+	if err := c.Override([]float64{2}); err != nil {
+		t.Fatal(err)
+	}
+	if tn := c.TrackingNoise(); tn.Available {
+		t.Errorf("tracking noise still available after Override")
 	}
 	off := newTestTuner(t, []float64{0}, TunerSettings{Gain: schedule.Power{Scale: 1, Exponent: 0.7}, Inference: Inference{Covariance: CovarianceOff}})
 	if eb := off.ErrorBars(); eb.Available || eb.Why == "" {
