@@ -2,6 +2,7 @@ package sa_test
 
 import (
 	"fmt"
+	"math"
 	"math/rand/v2"
 
 	"github.com/stochroot/stochroot/sa"
@@ -97,4 +98,49 @@ func ExampleSetpointTuner() {
 	fmt.Printf("limit %.4g (the delay is 50 ms at 62.5; stationary spread ±2.1)\n", limit)
 	// Output:
 	// limit 63.44 (the delay is 50 ms at 62.5; stationary spread ±2.1)
+}
+
+// A cache sized so that 90% of lookups hit, with no idea of the gain: the
+// knob is in entries (thousands), the level a fraction, so the right gain
+// is in the hundreds of thousands. With a nil Gain the tuner moves at most
+// MaxChange per report while it learns the slope of the hit rate from the
+// reports, then decreases its gain and averages.
+func ExampleSetpointTuner_learnedGain() {
+	rng := rand.New(rand.NewPCG(5, 6))
+	hitRate := func(entries float64) float64 { // invented: 90% at 46 052 entries
+		p := 1 - math.Exp(-entries/20000)
+		hits := 0
+		for range 100 { // the hit rate of the last 100 lookups
+			if rng.Float64() < p {
+				hits++
+			}
+		}
+		return float64(hits) / 100
+	}
+	s, err := sa.NewSetpointTuner(0.9, sa.Rising, 5000, sa.TunerSettings{
+		MaxChange:  []float64{4000}, // entries per report
+		Projection: sa.Box{Lower: []float64{1000}, Upper: []float64{500000}},
+	})
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	for range 100000 {
+		size, version := s.Param()
+		s.Observe(version, hitRate(size))
+	}
+	lg, _ := s.Tuner().LearnedGain()
+	avg := make([]float64, 1)
+	s.Tuner().Average(avg)
+	fmt.Printf("warm-up ended after %d reports; slope in use %.2g per entry\n", lg.SwitchStep+1, lg.InUse)
+	fmt.Printf("average %.0f entries (true 46052)\n", avg[0])
+	// A learned gain reports no error bars (their measured coverage was
+	// short of nominal; Tuner.ErrorBars says why). Watch the parameter,
+	// and keep Freeze and Override at hand.
+	fmt.Printf("error bars available: %v\n", s.Tuner().ErrorBars().Available)
+
+	// Output:
+	// warm-up ended after 32 reports; slope in use 1.1e-05 per entry
+	// average 46055 entries (true 46052)
+	// error bars available: false
 }

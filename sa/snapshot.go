@@ -29,7 +29,9 @@ const MaxSnapshotCount = 1 << 53
 // significant digits in fixed notation below 10⁻⁵; the exponent form
 // "-1.2345678901234567e-308" has 24), so 64 bytes a number leave room for
 // the separator and an indented layout. The fixed fields (14 integers of
-// at most 20 digits, three booleans and the names) take under 700 bytes.
+// at most 20 digits, three booleans and the names) take under 700 bytes,
+// and the learned_gain object of a learned gain (8 numbers, 1 integer, 2
+// booleans and their names) under 450 more.
 const (
 	snapshotHeaderBytes = 4096
 	snapshotNumberBytes = 64
@@ -55,11 +57,12 @@ func MaxSnapshotBytes(d int) int {
 
 // Field names of the snapshot object. Every field is required except
 // previous_measurement, which is present exactly when the tuner's gain is
-// adaptive and has a previous measurement.
+// adaptive and has a previous measurement, and learned_gain, which is
+// present exactly when the tuner learns its gain (nil TunerSettings.Gain).
 var (
 	snapshotFields = []string{
 		"format", "dim", "version", "x", "average", "averaged", "steps", "gain_index",
-		"previous_measurement", "active", "limited", "frozen", "counts",
+		"previous_measurement", "active", "limited", "frozen", "counts", "learned_gain",
 	}
 	snapshotCountFields = []string{
 		"applied", "stale", "frozen", "not_finite", "future", "failed", "after_close", "overrides", "restores",
@@ -68,19 +71,20 @@ var (
 
 // snapshot is the JSON form of a tuner's state, as Snapshot writes it.
 type snapshot struct {
-	Format    int           `json:"format"`
-	Dim       int           `json:"dim"`
-	Version   uint64        `json:"version"`
-	X         []float64     `json:"x"`
-	Average   []float64     `json:"average"`
-	Averaged  int           `json:"averaged"`
-	Steps     int           `json:"steps"`
-	GainIndex int           `json:"gain_index"`
-	PrevY     []float64     `json:"previous_measurement,omitempty"`
-	Active    bool          `json:"active"`
-	Limited   bool          `json:"limited"`
-	Frozen    bool          `json:"frozen"`
-	Counts    snapshotCount `json:"counts"`
+	Format    int              `json:"format"`
+	Dim       int              `json:"dim"`
+	Version   uint64           `json:"version"`
+	X         []float64        `json:"x"`
+	Average   []float64        `json:"average"`
+	Averaged  int              `json:"averaged"`
+	Steps     int              `json:"steps"`
+	GainIndex int              `json:"gain_index"`
+	PrevY     []float64        `json:"previous_measurement,omitempty"`
+	Active    bool             `json:"active"`
+	Limited   bool             `json:"limited"`
+	Frozen    bool             `json:"frozen"`
+	Counts    snapshotCount    `json:"counts"`
+	Learned   *snapshotLearned `json:"learned_gain,omitempty"`
 }
 
 type snapshotCount struct {
@@ -98,7 +102,10 @@ type snapshotCount struct {
 // Snapshot returns the whole state of the tuner as JSON: format version,
 // dimension, published version (for logs), parameter, Polyak–Ruppert average, step
 // counter and gain index (and the last measurement of an adaptive gain),
-// the frozen flag and the counters. Settings are not part of it: they come
+// the frozen flag and the counters, and for a learned gain (nil
+// TunerSettings.Gain) the learner's state: the least-squares sums, the
+// largest |Y|, the phase and the slope in use. The error bars' and the
+// tracking noise's state are not in it (see Tuner.ErrorBars). Settings are not part of it: they come
 // from the code that builds the tuner. A tuner built with the same settings
 // and restored from the snapshot continues exactly as this one would.
 func (t *Tuner) Snapshot() ([]byte, error) {
@@ -119,6 +126,7 @@ func (t *Tuner) snapshot() snapshot {
 			Future: s.Future, Failed: s.Failed, AfterClose: s.AfterClose,
 			Overrides: s.Overrides, Restores: s.Restores,
 		},
+		Learned: t.learn.snapshot(),
 	}
 }
 
@@ -149,7 +157,13 @@ func (t *Tuner) snapshot() snapshot {
 //     projection's set (the rule of Override, wrapped in ErrSnapshot);
 //   - an average beyond MaxAbs or, for a Box or Ball (convex sets, which
 //     hold the mean of their points), outside the set, beyond a relative
-//     rounding slack of 10⁻¹².
+//     rounding slack of 10⁻¹²;
+//   - a learned_gain object when the gain is set, or none when it is
+//     learned; in it, a number that is not finite, a weight outside
+//     [0, steps] (or above the forgetting window), negative sums of
+//     squares, sxy² > sxx·syy, a negative max_abs_y, a switch step or
+//     slope during the warm-up, or after it a slope ≤ 0 or a switch step
+//     not below steps.
 //
 // Restore after Close returns ErrClosed. A panic in the projection (while
 // checking the parameter) changes nothing; a panic in the OnUpdate hook
@@ -173,6 +187,17 @@ func (t *Tuner) Restore(data []byte) error {
 		X: s.X, Average: s.Average, NAvg: s.Averaged, Steps: s.Steps, GainIdx: s.GainIndex,
 		Prev: s.PrevY, Active: s.Active, Limited: s.Limited,
 	})
+	if t.learn != nil {
+		t.learn.restore(s.Learned)
+		t.bars.ok = t.learn.phase == phaseLearned && t.learn.memory == 0
+		if !t.bars.ok && t.learn.memory == 0 {
+			t.bars.stop("learned gain: the error bars start when the warm-up ends (the average restarts there)")
+		}
+	}
+	t.bars.restored(s.Averaged)
+	if t.track != nil {
+		t.track.restart()
+	}
 	t.version++
 	t.barrier = t.version
 	t.frozen = s.Frozen
@@ -319,7 +344,7 @@ func (t *Tuner) decodeSnapshot(data []byte) (*snapshot, error) {
 	if format != SnapshotFormat {
 		return nil, snapErr("format %d: this build reads format %d", format, SnapshotFormat)
 	}
-	if err := checkFields(m, "snapshot", snapshotFields, "previous_measurement"); err != nil {
+	if err := checkFields(m, "snapshot", snapshotFields, "previous_measurement", "learned_gain"); err != nil {
 		return nil, err
 	}
 	s := &snapshot{Format: format}
@@ -372,6 +397,17 @@ func (t *Tuner) decodeSnapshot(data []byte) (*snapshot, error) {
 	c := &s.Counts
 	for i, dst := range []*uint64{&c.Applied, &c.Stale, &c.Frozen, &c.NotFinite, &c.Future, &c.Failed, &c.AfterClose, &c.Overrides, &c.Restores} {
 		if *dst, err = snapshotCounter(cm, "counts.", snapshotCountFields[i]); err != nil {
+			return nil, err
+		}
+	}
+	_, hasLearned := m["learned_gain"]
+	switch {
+	case hasLearned && t.learn == nil:
+		return nil, snapErr("field \"learned_gain\" is present, but the tuner's gain is set (a learned gain needs a nil TunerSettings.Gain)")
+	case !hasLearned && t.learn != nil:
+		return nil, snapErr("field \"learned_gain\" is missing, and the tuner learns its gain (nil TunerSettings.Gain)")
+	case hasLearned:
+		if s.Learned, err = decodeLearned(m["learned_gain"], s.Steps, t.learn); err != nil {
 			return nil, err
 		}
 	}

@@ -37,11 +37,78 @@ var (
 // Gain is a default stated in the field's comment. NewTuner copies what it
 // keeps; later changes to the caller's slices have no effect.
 type TunerSettings struct {
-	// Gain is the gain sequence a_k; required. A constant gain
-	// (schedule.Constant) tracks a drifting target; a decreasing gain with
-	// averaging (schedule.Power, Exponent in (1/2, 1)) converges on a fixed
-	// one.
+	// Gain is the gain sequence a_k. A constant gain (schedule.Constant)
+	// tracks a drifting target; a decreasing gain with averaging
+	// (schedule.Power, Exponent in (1/2, 1)) converges on a fixed one.
+	//
+	// # Learned gain (nil Gain)
+	//
+	// A tuner of dimension 1 may leave Gain nil if it sets MaxChange, the
+	// largest move per report the live system tolerates (in the
+	// parameter's own units, which its owner knows even when the slope of
+	// the response is unknown). The tuner then learns its gain from the
+	// reports:
+	//
+	//   - Warm-up. Each report moves the parameter by a_k·Y_k with
+	//     a_k = MaxChange/max|Y| over the reports so far (this one
+	//     included), so no move exceeds MaxChange and none is clamped.
+	//     Meanwhile the slope s of the field is estimated by least squares
+	//     of Y on the parameter each report was taken at (Lai & Robbins
+	//     1979, "Adaptive design and stochastic approximation", Ann.
+	//     Statist. 7(6): the slope learned from the procedure's own design
+	//     points; Venter 1967, "An extension of the Robbins–Monro
+	//     procedure", Ann. Math. Statist. 38(1), for learning the slope
+	//     during the run). Reports more than 31 versions old count for the
+	//     update but not for the slope.
+	//   - The warm-up ends once at least LearnedMinReports reports give a
+	//     slope ŝ with t = ŝ/SE(ŝ) > LearnedSlopeT. That takes a few dozen
+	//     reports when the start is far from the target; from a start near
+	//     it (or for a quantile, whose slope, the density at the quantile,
+	//     shows only through the parameter's own wobble) it can take
+	//     thousands (15 000 requests in examples/timeouttuner), all of them
+	//     at the warm-up gain. With Memory = 0 the
+	//     gain then decreases, a_k = (1/ŝ)/(j+1)^0.7 (j steps since the
+	//     warm-up, ŝ the latest clear estimate), the Polyak–Ruppert average
+	//     restarts (so the warm-up is not in it; BurnIn still applies from
+	//     step 0), and the average converges on a fixed target with the
+	//     optimal variance whatever the error in ŝ (Polyak & Juditsky 1992,
+	//     Theorem 2). With Memory = M > 0 the gain stays constant,
+	//     a = 1/(ŝ·M): the parameter follows a drifting target with a time
+	//     constant of about M reports, and the slope estimate forgets with
+	//     a window of 100·M reports.
+	//   - After the warm-up too the gain never exceeds the warm-up gain
+	//     MaxChange/max|Y|, so no move exceeds MaxChange and none is
+	//     clamped (clamped moves would bias the iterate: for P = 0.99 a
+	//     miss cut short against hits at full size settles at another
+	//     quantile). MaxChange is therefore also the largest gain the tuner
+	//     may use: set it to the largest move the system tolerates, not
+	//     smaller, or the tuner is slow. One outlying |Y| lowers that bound
+	//     for good. The Projection still applies.
+	//   - A slope that comes out clearly negative (t < −LearnedSlopeT)
+	//     means the sign convention of Y is reversed: the tuner refuses
+	//     every later report with ErrSlopeSign and does not move.
+	//
+	// Tuner.LearnedGain shows the slope, the phase and the gain in use,
+	// and the snapshot carries the learner's state. The cautions of a live
+	// system hold as for a set gain: bound the parameter with a Box, watch
+	// it (OnUpdate, LearnedGain), and keep a manual override (Freeze,
+	// Override). A nil Gain is refused for dimension > 1: the gain would
+	// need the d×d Jacobian, and reports taken at the system's own
+	// parameters move mostly along its slowest directions, so a regression
+	// cannot resolve the Jacobian without deliberate perturbations of the
+	// live system; set the gain there.
 	Gain schedule.Schedule
+
+	// Inference configures the error bars of the Polyak–Ruppert average
+	// (Tuner.ErrorBars): Level (0.90, 0.95 or 0.99; 0 means 0.95) and
+	// Covariance (CovarianceOff switches them off). Method is ignored: a
+	// tuner always uses random scaling (see Tuner.ErrorBars for why).
+	Inference Inference
+
+	// Memory applies to a learned gain (nil Gain) only: 0 makes the gain
+	// decrease after the warm-up (a fixed target), M > 0 keeps it at
+	// 1/(ŝ·M) (a target that drifts; a time constant of about M reports).
+	Memory int
 
 	// Projection, if not nil, is applied after every update and bounds the
 	// published parameter; use a Box. A live system should always have
@@ -84,8 +151,18 @@ type TunerSettings struct {
 // resolve validates s for dimension d and returns the copy with defaults
 // filled in and the caller's slices copied.
 func (s TunerSettings) resolve(d int) (TunerSettings, error) {
+	if s.Memory < 0 {
+		return s, settingsErr("TunerSettings.Memory = %d: must be ≥ 0", s.Memory)
+	}
 	if s.Gain == nil {
-		return s, settingsErr("TunerSettings.Gain is nil: a gain schedule is required, for example schedule.Constant(0.05)")
+		if d != 1 {
+			return s, settingsErr("TunerSettings.Gain is nil at dimension %d: a learned gain is offered for dimension 1 only (it would need the %d×%d Jacobian, which reports taken at the system's own parameters do not resolve without deliberate perturbations of the live system); set a gain, for example schedule.Constant(0.05)", d, d, d)
+		}
+		if s.MaxChange == nil {
+			return s, settingsErr("TunerSettings.Gain is nil and MaxChange is nil: a learned gain needs MaxChange, the largest move per report the system tolerates, to bound its warm-up")
+		}
+	} else if s.Memory != 0 {
+		return s, settingsErr("TunerSettings.Memory = %d with a Gain set: Memory applies to a learned gain (nil Gain) only", s.Memory)
 	}
 	if v, ok := s.Gain.(schedule.Validator); ok {
 		if err := v.Validate(); err != nil {
@@ -114,6 +191,9 @@ func (s TunerSettings) resolve(d int) (TunerSettings, error) {
 			}
 		}
 		s.MaxChange = append([]float64(nil), s.MaxChange...)
+		if s.Gain == nil && math.IsInf(s.MaxChange[0], 1) {
+			return s, settingsErr("TunerSettings.Gain is nil and MaxChange[0] = +Inf: a learned gain needs a finite MaxChange to bound its warm-up")
+		}
 	}
 	// The projections of this package are copied (a pointer to one is
 	// replaced by a copy of its value), so that the caller's slices do not
@@ -182,7 +262,7 @@ const (
 	RestoreUpdate
 )
 
-// Update describes one change of the published parameter, for
+// Update describes one change of the parameter, for
 // TunerSettings.OnUpdate.
 type Update struct {
 	Kind    UpdateKind // what changed the parameter
@@ -271,44 +351,74 @@ const (
 //
 // # Publication
 //
-// Published values live in a ring of 8 preallocated slots; version v is in
-// slot v mod 8, and every change publishes exactly the next version. The
-// writer stores the new values into their slot (atomically, number by
-// number) and then stores the new current version. A reader loads the
-// current version v, copies slot v mod 8, and loads the current version
-// again: if it is below v+7, the writer cannot yet have started to
-// overwrite that slot (it writes version v+8 only after publishing v+7, and
-// Go's atomic operations are sequentially consistent), so the copy is
-// exactly version v; otherwise the reader starts over. Publishing therefore
-// costs d+1 atomic stores and no allocation (an atomic pointer to a fresh
-// immutable value would allocate once per update), readers never block
-// the writer or each other, and a reader retries only when 7 updates
-// happen while it copies d numbers.
+// Published values live in a ring of 8 preallocated slots; publication p
+// (counted from 0) goes to slot p mod 8. The writer stores the d values
+// into their slot (atomically, number by number) and then stores one word
+// that holds both the version and the slot number (version·8 + slot). A
+// reader loads that word, copies the slot, and loads the word again: if
+// the version has grown by less than 7, fewer than 7 publications have
+// happened since (each raises the version by at least 1), and the writer
+// rewrites a slot only at the 8th publication after it (Go's atomic
+// operations are sequentially consistent), so the copy is exactly what
+// was published; otherwise the reader starts over. Publishing costs d+1
+// atomic stores and no allocation (an atomic pointer to a fresh immutable
+// value would allocate once per update, and a reused buffer written
+// without atomics would race with a slow reader), readers never block the
+// writer or each other, and a reader retries only when the version grows
+// by 7 while it copies d numbers.
+//
+// While reports queue up for the update lock, the tuner publishes once
+// per queue rather than once per update: a report that finds others
+// waiting leaves the publication to the last of them (every report that
+// leaves the lock publishes if nobody is waiting). A reader can then see
+// a parameter some updates old — at most as many as there were reports
+// in the queue — together with its own version, so the staleness rule
+// still measures the true lag; the hook (OnUpdate) still sees every
+// update. A lone reporter publishes every update.
+//
+// # Gain, error bars and tracking noise
+//
+// A tuner of dimension 1 may learn its gain (nil TunerSettings.Gain; see
+// there for the warm-up, the bound on every move and LearnedGain).
+// ErrorBars gives an interval for the Polyak–Ruppert average where the
+// package's coverage check backs it (a hand-set decreasing gain on a Tuner
+// or SetpointTuner), and says why not elsewhere; TrackingNoise gives the
+// stationary spread of the parameter under a constant gain.
 //
 // # Concurrency
 //
 // All methods are safe for concurrent use. Param and Param1 take no lock.
-// Report, Override, Restore, Freeze, Resume, Close, Snapshot, Average and
-// Stats serialise on one mutex: updates are sequential by nature, each
+// Report, Override, Restore, Freeze, Resume, Close, Snapshot, Average,
+// Stats, ErrorBars, TrackingNoise and LearnedGain serialise on one mutex: updates are sequential by nature, each
 // starting from the last, and the critical section is a few dozen
 // nanoseconds for a small dimension.
 type Tuner struct {
 	d      int
 	stride int // distance between slots in vals (cache-line multiple)
 
-	cur  atomic.Uint64   // current published version
-	vals []atomic.Uint64 // Float64bits of the published values, ring slots of stride numbers
+	cur  atomic.Uint64   // version·8 + slot of the current publication (see Publication)
+	vals []atomic.Uint64 // ring slots of stride numbers: Float64bits of the values
+
+	waiting atomic.Int32 // reports waiting for mu (see Publication)
 
 	mu      sync.Mutex
+	pubs    uint64 // number of the last publication, written under mu
+	pending bool   // version has not been published yet
 	c       *core
 	set     TunerSettings
 	maxLag  uint64
 	ybuf    []float64
-	version uint64 // == cur, written under mu
+	version uint64 // current version (published unless pending), written under mu
 	barrier uint64 // reports before this version are stale
 	frozen  bool
 	closed  bool
 	stats   TunerStats
+	learn   *learner // learned gain (nil Gain), or nil
+
+	bars      *tunerBars  // error bars of the average
+	track     *trackNoise // tracking noise (constant gains), or nil
+	trackWhy  string      // why track is nil
+	trackSkip int         // reports since the last one track read
 }
 
 // NewTuner returns a tuner that starts at x0 (copied) with version 0. It
@@ -329,12 +439,35 @@ func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
 	if err := checkInside("x0", x0, rs.Projection, rs.MaxAbs, ErrSettings); err != nil {
 		return nil, err
 	}
+	gain := rs.Gain
+	var learn *learner
+	if gain == nil {
+		learn = newLearner(rs.MaxChange[0], rs.Memory)
+		gain = learn
+	}
 	t := &Tuner{
 		d:      d,
 		stride: (d + 7) &^ 7,
-		c:      newCore(x0, rs.Gain, rs.BurnIn, rs.Projection, rs.MaxAbs),
+		c:      newCore(x0, gain, rs.BurnIn, rs.Projection, rs.MaxAbs),
 		set:    rs,
 		ybuf:   make([]float64, d),
+		learn:  learn,
+		pubs:   ^uint64(0), // the first publication is number 0
+	}
+	if t.bars, err = newTunerBars(d, rs, learn != nil); err != nil {
+		return nil, err
+	}
+	if learn != nil && rs.Memory == 0 {
+		t.bars.refuse(learnedBarsRefused)
+	}
+	_, constant := rs.Gain.(schedule.Constant)
+	switch {
+	case constant || (learn != nil && rs.Memory > 0):
+		t.track = newTrackNoise(d)
+	case learn != nil:
+		t.trackWhy = "the learned gain decreases (TunerSettings.Memory = 0): the parameter converges rather than tracks; ErrorBars describe the average"
+	default:
+		t.trackWhy = "the gain is not constant (schedule.Constant, or a learned gain with Memory > 0): ErrorBars describe the average of a decreasing gain"
 	}
 	t.c.maxChange = rs.MaxChange
 	if rs.MaxLag != CurrentOnly {
@@ -345,21 +478,52 @@ func NewTuner(x0 []float64, s TunerSettings) (*Tuner, error) {
 	return t, nil
 }
 
-// publish stores the core's iterate as version t.version, which must be
-// the previous version plus one (or 0 for the first). Called with mu held
-// (or before the tuner is shared).
+// publish stores the core's iterate with its version t.version as the
+// next publication. Called with mu held (or before the tuner is shared,
+// for the first publication, number 0).
 func (t *Tuner) publish() {
 	v := t.version
-	vals := t.vals[int(v&ringMask)*t.stride:][:t.d]
+	p := t.pubs + 1
+	slot := t.vals[int(p&ringMask)*t.stride:][:t.d]
 	for j, x := range t.c.x {
-		vals[j].Store(math.Float64bits(x))
+		slot[j].Store(math.Float64bits(x))
 	}
-	t.cur.Store(v)
+	t.cur.Store(v<<3 | p&ringMask)
+	t.pubs = p
+	t.pending = false
+	if t.learn != nil {
+		t.learn.remember(v, t.c.x[0])
+	}
 }
 
-// fresh reports whether a copy of version v's slot made before loading
-// now as the current version is exactly version v (see Publication).
-func fresh(v, now uint64) bool { return now-v < ring-1 }
+// lockReport takes the update lock for Report, counting the report as
+// waiting while the lock is busy (see Publication).
+func (t *Tuner) lockReport() {
+	if t.mu.TryLock() {
+		return
+	}
+	t.waiting.Add(1)
+	t.mu.Lock()
+	t.waiting.Add(-1)
+}
+
+// unlockReport publishes a pending update unless other reports wait for
+// the lock (the last of them publishes), and releases the lock.
+func (t *Tuner) unlockReport() {
+	if t.pending && t.waiting.Load() == 0 {
+		t.publish()
+	}
+	t.mu.Unlock()
+}
+
+// The word holds the version in its upper 61 bits: a tuner would need
+// 2⁶¹ changes (73 years at 10⁹ a second) to overflow it, and its step
+// counter stops at MaxSnapshotCount = 2⁵³ long before.
+//
+// fresh reports whether a copy of the slot published with the word c,
+// made before loading now as the current word, is exactly what was
+// published (see Publication).
+func fresh(c, now uint64) bool { return now>>3-c>>3 < ring-1 }
 
 // Dim returns the dimension of the parameter.
 func (t *Tuner) Dim() int { return t.d }
@@ -373,13 +537,13 @@ func (t *Tuner) Param(dst []float64) (version uint64) {
 		panic("sa: Tuner.Param: len(dst) differs from the tuner's dimension")
 	}
 	for {
-		v := t.cur.Load()
-		vals := t.vals[int(v&ringMask)*t.stride:][:t.d]
+		c := t.cur.Load()
+		slot := t.vals[int(c&ringMask)*t.stride:][:t.d]
 		for j := range dst {
-			dst[j] = math.Float64frombits(vals[j].Load())
+			dst[j] = math.Float64frombits(slot[j].Load())
 		}
-		if fresh(v, t.cur.Load()) {
-			return v
+		if fresh(c, t.cur.Load()) {
+			return c >> 3
 		}
 	}
 }
@@ -391,10 +555,10 @@ func (t *Tuner) Param1() (x float64, version uint64) {
 		panic("sa: Tuner.Param1 on a tuner of dimension other than 1")
 	}
 	for {
-		v := t.cur.Load()
-		x = math.Float64frombits(t.vals[int(v&ringMask)*t.stride].Load())
-		if fresh(v, t.cur.Load()) {
-			return x, v
+		c := t.cur.Load()
+		x = math.Float64frombits(t.vals[int(c&ringMask)*t.stride].Load())
+		if fresh(c, t.cur.Load()) {
+			return x, c >> 3
 		}
 	}
 }
@@ -420,8 +584,8 @@ func (t *Tuner) Param1() (x float64, version uint64) {
 // the OnUpdate hook comes after the update: the update stands (published
 // and counted as Applied) and the panic reaches the caller.
 func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
-	t.mu.Lock()
-	defer t.mu.Unlock()
+	t.lockReport()
+	defer t.unlockReport()
 	if t.closed {
 		count1(&t.stats.AfterClose)
 		return Rejected, ErrClosed
@@ -431,7 +595,7 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 		return Rejected, fmt.Errorf("%w: measurement has length %d, tuner dimension %d", ErrDimension, len(y), t.d)
 	}
 	for i, v := range y {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
+		if v-v != 0 { // NaN or ±Inf
 			count1(&t.stats.NotFinite)
 			return Rejected, fmt.Errorf("%w: Y[%d] = %v (version %d)", ErrNotFinite, i, v, version)
 		}
@@ -454,7 +618,18 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 		count1(&t.stats.Failed)
 		return Rejected, &StepError{Step: k, Err: fmt.Errorf("%w: the step counter has reached MaxSnapshotCount = 2⁵³, past which no gain is defined; restore a snapshot with fewer steps or build a new tuner", ErrGain)}
 	}
+	if l := t.learn; l != nil {
+		if err := l.prepare(version, y[0], k); err != nil {
+			count1(&t.stats.Failed)
+			return Rejected, &StepError{Step: k, Err: err}
+		}
+	}
 	copy(t.ybuf, y)
+	bars := t.bars.bm != nil
+	if bars {
+		t.bars.before(t.c)
+	}
+	nAvg, projected := t.c.nAvg, t.c.projected
 	if err := t.step(); err != nil {
 		if errors.Is(err, ErrNotFinite) {
 			count1(&t.stats.NotFinite)
@@ -463,8 +638,26 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 		}
 		return Rejected, err
 	}
+	if bars {
+		t.bars.after(t.c, t.c.nAvg != nAvg, t.c.projected != projected)
+	}
+	if l := t.learn; l != nil {
+		l.commit(k)
+		if l.pendingSwitch {
+			t.warmUpEnded()
+		}
+	}
+	if t.track != nil {
+		if t.trackSkip++; t.trackSkip == TrackingStride {
+			t.trackSkip = 0
+			t.track.add(t.c.x)
+		}
+	}
 	t.version++
-	t.publish()
+	t.pending = true
+	if t.waiting.Load() == 0 {
+		t.publish() // before the hook, which may call Param
+	}
 	t.stats.Applied++
 	if h := t.set.OnUpdate; h != nil {
 		h(Update{
@@ -480,15 +673,19 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 // an adaptive gain's Advance) happens before the core commits anything (see
 // core.step), so the report is not applied: it is counted as Failed and
 // the panic goes on to Report's caller, which releases the lock on the way.
-func (t *Tuner) step() (err error) {
-	done := false
-	defer func() {
-		if !done {
-			count1(&t.stats.Failed)
-		}
-	}()
-	err = t.c.step(t.ybuf)
-	done = true
+//
+// The count is taken before the step and given back after it returns, so
+// that no deferred call is needed on the hot path (a panic skips the give
+// back); a counter already at its cap is left alone.
+func (t *Tuner) step() error {
+	capped := t.stats.Failed >= MaxSnapshotCount
+	if !capped {
+		t.stats.Failed++
+	}
+	err := t.c.step(t.ybuf)
+	if !capped {
+		t.stats.Failed--
+	}
 	return err
 }
 
@@ -523,6 +720,11 @@ func (t *Tuner) Override(x []float64) error {
 		return err
 	}
 	t.c.override(x)
+	t.bars.averageRestarted()
+	if t.track != nil {
+		t.track.restart()
+		t.trackSkip = 0
+	}
 	t.version++
 	t.barrier = t.version
 	t.publish()

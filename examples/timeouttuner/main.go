@@ -11,6 +11,12 @@
 // requests that finished in time, second by second, with the backend's
 // designed 0.99-quantile beside it, and writes a PNG plot.
 //
+// The tuner is given no gain: it moves the timeout by at most 2 ms per
+// request while it learns the slope of the fraction within the timeout,
+// then keeps a constant gain with a time constant of about 80 requests
+// (TunerSettings.Memory). The program prints the gain it learned and how,
+// and the tracking noise of the timeout once enough requests back it.
+//
 // The backend's latency is log-normal with a median of 4 ms that ramps to
 // 8 ms between 4.5 s and 5.5 s (a scenario of our own). The handler adds
 // the scheduling delay of a loaded 2-core machine on top, so the measured
@@ -46,7 +52,6 @@ import (
 	"gonum.org/v1/plot/vg/vgimg"
 
 	"github.com/stochroot/stochroot/sa"
-	"github.com/stochroot/stochroot/schedule"
 )
 
 const (
@@ -83,9 +88,11 @@ func main() {
 	log.SetFlags(0)
 	began := time.Now()
 	q, err := sa.NewQuantileTuner(p, 30, sa.TunerSettings{ // start at a generous 30 ms
-		// a·f(q) ≈ 0.012 at the first level (f(q) ≈ 0.0084/ms): a time
-		// constant of about 80 requests, a stationary spread of about 1 ms.
-		Gain:       schedule.Constant(1.5),
+		// No gain: the tuner learns the slope of the fraction within the
+		// timeout from the reports (moving at most MaxChange meanwhile)
+		// and then keeps a constant gain with a time constant of about
+		// Memory requests, so that it follows the drift.
+		Memory:     80,
 		Projection: sa.Box{Lower: []float64{1}, Upper: []float64{200}}, // ms
 		MaxChange:  []float64{2},                                       // ms per update
 		MaxLag:     64,                                                 // ≈ 2 versions per concurrent request
@@ -224,6 +231,15 @@ func main() {
 	phase("after the drift ", 7, 10)
 	fmt.Printf("tuner: %d reports applied, %d stale, %d rejected; version %d\n",
 		st.Applied, st.Stale, st.NotFinite+st.Future+st.Failed+st.AfterClose, st.Version)
+	if lg, ok := q.Tuner().LearnedGain(); ok {
+		fmt.Printf("learned gain: warm-up ended after %d reports; slope %.3g ± %.2g per ms (in use %.3g), gain %.4g ms\n",
+			lg.SwitchStep+1, lg.Slope, lg.StdErr, lg.InUse, lg.Gain)
+	}
+	if tn := q.Tuner().TrackingNoise(); tn.Available {
+		fmt.Printf("tracking noise: the timeout wobbles by ±%.3g ms (one standard deviation) over a memory of %.0f requests\n", tn.Spread[0], tn.Memory)
+	} else {
+		fmt.Printf("tracking noise: not available (%s)\n", tn.Why)
+	}
 
 	path := os.Getenv("TIMEOUTTUNER_PNG")
 	if path == "" {
@@ -294,7 +310,7 @@ func writePlot(path string, ts, xs []float64, bins []binStats) error {
 	top.Add(lt, lq, plotter.NewGrid())
 	top.Legend.Add("tuned timeout", lt)
 	top.Legend.Add("designed 0.99-quantile of backend latency", lq)
-	top.Legend.Top = true
+	top.Legend.Top = false // bottom right, below the tuned line
 	top.X.Min, top.X.Max = 0, runFor.Seconds()
 	top.Y.Min = 0
 
