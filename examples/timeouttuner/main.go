@@ -232,8 +232,13 @@ func main() {
 	fmt.Printf("tuner: %d reports applied, %d stale, %d rejected; version %d\n",
 		st.Applied, st.Stale, st.NotFinite+st.Future+st.Failed+st.AfterClose, st.Version)
 	if lg, ok := q.Tuner().LearnedGain(); ok {
-		fmt.Printf("learned gain: warm-up ended after %d reports; slope %.3g ± %.2g per ms (in use %.3g), gain %.4g ms\n",
-			lg.SwitchStep+1, lg.Slope, lg.StdErr, lg.InUse, lg.Gain)
+		if lg.WarmUp {
+			fmt.Printf("learned gain: still warming up after %d reports (slope %.3g ± %.2g per ms, not yet clear of its noise); warm-up gain %.4g ms, every move within MaxChange\n",
+				st.Applied, lg.Slope, lg.StdErr, lg.Gain)
+		} else {
+			fmt.Printf("learned gain: warm-up ended after %d reports; slope %.3g ± %.2g per ms (in use %.3g), gain %.4g ms\n",
+				lg.SwitchStep+1, lg.Slope, lg.StdErr, lg.InUse, lg.Gain)
+		}
 	}
 	if tn := q.Tuner().TrackingNoise(); tn.Available {
 		fmt.Printf("tracking noise: the timeout wobbles by ±%.3g ms (one standard deviation) over a memory of %.0f requests\n", tn.Spread[0], tn.Memory)
@@ -283,6 +288,21 @@ func timeoutAt(ts, xs []float64, t float64) float64 {
 	return v
 }
 
+// stepTicks labels every multiple of step inside the axis range.
+func stepTicks(step float64, format string) plot.Ticker {
+	return plot.TickerFunc(func(lo, hi float64) []plot.Tick {
+		var ts []plot.Tick
+		for i := math.Ceil(lo/step - 1e-9); i*step <= hi+1e-9*step; i++ {
+			v := i * step
+			if v == 0 {
+				v = 0 // not "-0"
+			}
+			ts = append(ts, plot.Tick{Value: v, Label: fmt.Sprintf(format, v)})
+		}
+		return ts
+	})
+}
+
 func writePlot(path string, ts, xs []float64, bins []binStats) error {
 	top := plot.New()
 	top.Title.Text = "Request timeout tuned to the 0.99-quantile of a drifting backend"
@@ -313,6 +333,7 @@ func writePlot(path string, ts, xs []float64, bins []binStats) error {
 	top.Legend.Top = false // bottom right, below the tuned line
 	top.X.Min, top.X.Max = 0, runFor.Seconds()
 	top.Y.Min = 0
+	top.Y.Tick.Marker = stepTicks(5, "%.0f") // 0, 5, 10, … ms, not two labels with needless decimals
 
 	bottom := plot.New()
 	bottom.X.Label.Text = "time (s)"
@@ -339,6 +360,7 @@ func writePlot(path string, ts, xs []float64, bins []binStats) error {
 	bottom.Legend.Left = true
 	bottom.X.Min, bottom.X.Max = 0, runFor.Seconds()
 	bottom.Y.Min, bottom.Y.Max = 0.9, 1.005
+	bottom.Y.Tick.Marker = stepTicks(0.02, "%.2f")
 
 	img := vgimg.New(vg.Points(720), vg.Points(560))
 	dc := draw.New(img)
