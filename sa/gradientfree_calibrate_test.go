@@ -28,7 +28,8 @@ func diagQuadratic(lam []float64, sd float64) oracle.ValueFunc {
 // TestCalibrationGradientFree: a nil gain with the SPSA and
 // Kiefer–Wolfowitz adapters gives the robust constant step of
 // calibrateGradientFree (Nemirovski, Juditsky, Lan & Shapiro 2009), with
-// the pilot counted in the budget, the curvature along the gradient
+// the pilot (M̂ at x0 and again at the Cauchy point) counted in the
+// budget and within its share, the curvature along the gradient
 // between the smallest and the largest eigenvalue, the stability cap
 // respected, and a mean loss within the robust bound.
 //
@@ -70,6 +71,11 @@ func TestCalibrationGradientFree(t *testing.T) {
 			}
 			if !strings.Contains(c.Source, "Nemirovski") || c.How == "" || len(c.Pilot) == 0 {
 				t.Errorf("%s: Calibration lacks source, sentence or pilot: %+v", method, c)
+			}
+			// The pilot, its second M̂ at the Cauchy point included, stays
+			// within its share of the budget (pilotShare, 10%).
+			if !strings.Contains(c.How, "Cauchy point") || c.PilotMeasurements > budget/10 {
+				t.Errorf("%s: pilot of %d measurements (at most %d) without M̂ at the Cauchy point: %s", method, c.PilotMeasurements, budget/10, c.How)
 			}
 			gamma, ok := c.Gain.(schedule.Constant)
 			if !ok || r.Settings.Gain != c.Gain {
