@@ -157,8 +157,8 @@ func TestCalibrationGradientFreeNoBudget(t *testing.T) {
 }
 
 // TestCalibrationGradientFreeFailures: a Value that fails during the pilot
-// fails the run with its error, marked as the pilot's, and the Result
-// carries the Calibration so far; a cancelled context stops the pilot; the
+// (at x0 or at the Cauchy point) fails the run with its error, marked as
+// the pilot's, and the Result carries the Calibration so far; a cancelled context stops the pilot; the
 // second differences never probe beyond MaxAbs, nor where the projection
 // would move the point.
 func TestCalibrationGradientFreeFailures(t *testing.T) {
@@ -180,6 +180,28 @@ func TestCalibrationGradientFreeFailures(t *testing.T) {
 	r, err := sa.RobbinsMonro(context.Background(), g, make([]float64, 4), sa.Settings{MaxMeasurements: 10000})
 	if !errors.Is(err, bad) || !strings.Contains(err.Error(), "calibration pilot") || r.Calibration == nil || r.Steps != 0 {
 		t.Errorf("failing Value: err %v, Calibration %v, %d steps; want the Value's error from the pilot, a Calibration and no step", err, r.Calibration, r.Steps)
+	}
+	// A failure during the second part of the pilot (M̂ at the Cauchy
+	// point: with 10 000 measurements the pilot takes 100 gradient
+	// estimates, 200 values, at x0 and 24 values of second differences
+	// first) is reported as such, with the pilot's completed calls counted.
+	var n2 atomic.Int64
+	f2 := oracle.ValueFunc(func(x []float64, rng *rand.Rand) (float64, error) {
+		if n2.Add(1) > 300 {
+			return 0, bad
+		}
+		return inner(x, rng)
+	})
+	g1, err := oracle.NewSPSA(f2, 4, oracle.SPSASettings{Sizes: schedule.PowerSizes{Scale: 0.1, Exponent: schedule.SpallGamma}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	r, err = sa.RobbinsMonro(context.Background(), g1, make([]float64, 4), sa.Settings{MaxMeasurements: 10000})
+	// The 301st value is the first of a call (200 + 24 values before, 2
+	// a call), so the 300 values taken are all counted.
+	if !errors.Is(err, bad) || !strings.Contains(err.Error(), "Cauchy point") || r.Calibration == nil || r.Steps != 0 ||
+		r.Calibration.PilotMeasurements != 300 || r.Measurements != 300 {
+		t.Errorf("failing Value at the Cauchy point: err %v, Calibration %+v, %d steps, %d measurements", err, r.Calibration, r.Steps, r.Measurements)
 	}
 	ctx, cancel := context.WithCancel(context.Background())
 	cancel()
