@@ -66,15 +66,16 @@ const (
 // Why the second M̂: the M² of the bound enters its proof only as the
 // mean of E‖ĝ_k‖² along the path (the proof sums ‖x_{k+1} − x*‖² ≤
 // ‖x_k − x*‖² − 2γ⟨ĝ_k, x_k − x*⟩ + γ²‖ĝ_k‖² over the steps; Nemirovski
-// et al. 2009, §2.2, from memory). The estimates satisfy E‖ĝ(x)‖² ≈ M₀² + m·‖∇f(x)‖², with M₀² the
-// noise of an estimate at the minimum and m as below (for SPSA m ≈ p:
-// the perturbation term p·‖∇f‖² that makes M̂ at x0 large far from the
-// minimum). For an L-smooth convex loss ‖∇f(x)‖² ≤ 2L(f(x) − f*) (Nesterov
-// 2004, Introductory Lectures on Convex Optimization, Theorem 2.1.5; from
-// memory for the number), so with γ ≤ 1/(2mL) the same proof gives
-// E[f(x̄_N)] − f* ≤ (D² + γ²M₀²N)/(γN), minimised by γ = D/(M₀·√N): the M
-// that sets the step is the noise near the minimum, not M at x0 (our
-// derivation, from memory of that standard argument). M̂ at the Cauchy
+// et al. 2009, §2.2, from memory). The estimates satisfy E‖ĝ(x)‖² ≈
+// M₀² + m·‖∇f(x)‖², with M₀² the noise of an estimate at the minimum and
+// m as below (for SPSA with one perturbation m = p: the perturbation
+// term p·‖∇f‖² that makes M̂ at x0 large far from the minimum). For an
+// L-smooth convex loss ‖∇f(x)‖² ≤ 2L(f(x) − f*) (Nesterov 2004,
+// Introductory Lectures on Convex Optimization, Theorem 2.1.5; the
+// number from memory), so with γ ≤ 1/(2mL) the same sum gives
+// E[f(x̄_N)] − f* ≤ (D² + γ²M₀²N)/(γN), minimised by γ = D/(M₀·√N): the
+// M that sets the step is the noise near the minimum, not M at x0 (our
+// own short derivation along that standard argument). M̂ at the Cauchy
 // point estimates M₀ from above (‖∇f‖ there is smaller than at x0 but
 // not 0), and c_k of the middle step includes the growth of the noise
 // as c_k shrinks. Measured on Spall's skewed quartic (p = 10, 100 seeds;
@@ -231,9 +232,9 @@ func calibrateGradientFree(ctx context.Context, h gradientFree, x0 []float64, rs
 	left := stepsLeft()
 	// M̂ where the run spends its steps: at the Cauchy point x0 − (‖g‖/λ̂)·u
 	// (projected), with the perturbation size c_k of the middle step.
-	mhat0, rc := mhat, 0
+	mhat0 := mhat
 	if lam > 0 && left != math.MaxInt {
-		rc = min(gfGradCalls, (budget-cal.PilotMeasurements)/perCall)
+		rc := min(gfGradCalls, (budget-cal.PilotMeasurements)/perCall)
 		xc := make([]float64, d)
 		for i := range xc {
 			xc[i] = x0[i] - gnorm/lam*u[i]
@@ -262,8 +263,6 @@ func calibrateGradientFree(ctx context.Context, h gradientFree, x0 []float64, rs
 			mhat = math.Sqrt(mc)
 			left = stepsLeft()
 			how += fmt.Sprintf("; at the Cauchy point x0 − %.3g·u, with the size c_k of step %d, %d gradient estimates have root mean square M̂ = %.3g (%.3g at x0)", gnorm/lam, kmid, rc, mhat, mhat0)
-		} else {
-			rc = 0
 		}
 	}
 	capped := ""
