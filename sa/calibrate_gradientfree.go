@@ -57,13 +57,42 @@ const (
 //     Nocedal & Wright 2006, Numerical Optimization, §4.1), with ‖g‖² the
 //     unbiased estimate (r‖ḡ‖² − M̂²)/(r − 1); with a Box of finite
 //     bounds or a Ball as Settings.Projection, D̂ is instead the paper's
-//     own D_X, the farthest point of the set from x0.
+//     own D_X, the farthest point of the set from x0;
+//   - M̂ again where the run spends its steps: with a step or measurement
+//     budget, up to gfGradCalls gradient estimates at the Cauchy point
+//     x0 − (‖g‖/λ̂)·u (projected; skipped beyond MaxAbs), taken with the
+//     perturbation size c_k of the run's middle step k = N/2.
+//
+// Why the second M̂: the M² of the bound enters its proof only as the
+// mean of E‖ĝ_k‖² along the path (the proof sums ‖x_{k+1} − x*‖² ≤
+// ‖x_k − x*‖² − 2γ⟨ĝ_k, x_k − x*⟩ + γ²‖ĝ_k‖² over the steps; Nemirovski
+// et al. 2009, §2.2, from memory). The estimates satisfy E‖ĝ(x)‖² ≈
+// M₀² + m·‖∇f(x)‖², with M₀² the noise of an estimate at the minimum and
+// m as below (for SPSA with one perturbation m = p: the perturbation
+// term p·‖∇f‖² that makes M̂ at x0 large far from the minimum). For an
+// L-smooth convex loss ‖∇f(x)‖² ≤ 2L(f(x) − f*) (Nesterov 2004,
+// Introductory Lectures on Convex Optimization, Theorem 2.1.5; the
+// number from memory), so with γ ≤ 1/(2mL) the same sum gives
+// E[f(x̄_N)] − f* ≤ (D² + γ²M₀²N)/(γN), minimised by γ = D/(M₀·√N): the
+// M that sets the step is the noise near the minimum, not M at x0 (our
+// own short derivation along that standard argument). M̂ at the Cauchy
+// point estimates M₀ from above (‖∇f‖ there is smaller than at x0 but
+// not 0), and c_k of the middle step includes the growth of the noise
+// as c_k shrinks. Measured on Spall's skewed quartic (p = 10, 100 seeds;
+// TestReferenceSkewedQuarticBudgets): SPSA's mean loss at 2 000
+// measurements fell from 0.083 (M̂ at x0) to 0.044, and SPSA now needs
+// about 6 to 9 times fewer measurements than Kiefer–Wolfowitz for the
+// same loss at budgets 2 000 to 32 000 (1.7 to 8.4 before).
 //
 // The gain is the constant γ = D̂/(M̂·√N) over the N steps left after the
-// pilot, capped at 1/(m·λ̂), half the mean-square stability limit of the
-// update along u: m = 1 for Kiefer–Wolfowitz and m = 1 + (p−1)/q for SPSA
-// with q perturbations, since E[(ΔΔᵀ)²] = p·I for one ±1 perturbation
-// (Spall 1992, IEEE TAC 37(3): the simultaneous perturbation's noise).
+// pilot (M̂ the second one when it was taken), capped at 1/(m·λ̂), half
+// the mean-square stability limit of the update along u: m = 1 for
+// Kiefer–Wolfowitz and m = 1 + (p−1)/q for SPSA with q perturbations,
+// since E[(ΔΔᵀ)²] = p·I for one ±1 perturbation (Spall 1992, IEEE TAC
+// 37(3): the simultaneous perturbation's noise). The argument above
+// needs γ ≤ 1/(2m·L) with L the largest curvature, which the pilot does
+// not measure (λ̂ ≤ L is the curvature along u only): where the loss is
+// much more curved across u than along it, set Settings.Gain.
 // Without a step or measurement budget N is unknown and the gain is
 // (D̂/M̂)/√(k+1+A) (the anytime form, Nemirovski et al. 2009, §2.2), A
 // keeping the first step under the same cap.
@@ -76,7 +105,7 @@ func calibrateGradientFree(ctx context.Context, h gradientFree, x0 []float64, rs
 	d := len(x0)
 	rng := rand.New(rand.NewPCG(rs.Seed, streamCalibrate))
 	cal := &Calibration{
-		Method: "robust stochastic approximation: constant step D̂/(M̂·√N) with averaging, D̂ = ‖g‖/λ̂ and M̂² = mean ‖ĝ‖² from a pilot at x0",
+		Method: "robust stochastic approximation: constant step D̂/(M̂·√N) with averaging, D̂ = ‖g‖/λ̂ from a pilot at x0 and M̂² = mean ‖ĝ‖² at the Cauchy point",
 		Source: "Nemirovski, Juditsky, Lan & Shapiro 2009, SIAM J. Optim. 19(4), §2.2 (robust step); Nocedal & Wright 2006, §4.1 (Cauchy step); Spall 1992, IEEE TAC 37(3) (SPSA noise)",
 	}
 	m := 1.0
@@ -84,7 +113,7 @@ func calibrateGradientFree(ctx context.Context, h gradientFree, x0 []float64, rs
 		m = 1 + float64(d-1)/float64(s.Perturbations())
 	}
 	budget := maxCalls * perCall // the pilot's measurements
-	rg := min(gfGradCalls, max(2, budget/2/perCall))
+	rg := min(gfGradCalls, max(2, budget/3/perCall))
 	y := make([]float64, d)
 	gbar := make([]float64, d)
 	m2 := 0.0
@@ -190,12 +219,51 @@ func calibrateGradientFree(ctx context.Context, h gradientFree, x0 []float64, rs
 	}
 	cal.Slope = lam
 	// The steps left after the pilot, under every budget the run has.
-	left := math.MaxInt
-	if rs.MaxSteps != NoLimit {
-		left = rs.MaxSteps - cal.PilotCalls
+	stepsLeft := func() int {
+		left := math.MaxInt
+		if rs.MaxSteps != NoLimit {
+			left = rs.MaxSteps - cal.PilotCalls
+		}
+		if rs.MaxMeasurements > 0 {
+			left = min(left, (rs.MaxMeasurements-cal.PilotMeasurements)/perCall)
+		}
+		return left
 	}
-	if rs.MaxMeasurements > 0 {
-		left = min(left, (rs.MaxMeasurements-cal.PilotMeasurements)/perCall)
+	left := stepsLeft()
+	// M̂ where the run spends its steps: at the Cauchy point x0 − (‖g‖/λ̂)·u
+	// (projected), with the perturbation size c_k of the middle step.
+	mhat0 := mhat
+	if lam > 0 && left != math.MaxInt {
+		rc := min(gfGradCalls, (budget-cal.PilotMeasurements)/perCall)
+		xc := make([]float64, d)
+		for i := range xc {
+			xc[i] = x0[i] - gnorm/lam*u[i]
+		}
+		if rs.Projection != nil {
+			rs.Projection.Project(xc)
+		}
+		for _, v := range xc {
+			if rs.MaxAbs > 0 && math.Abs(v) > rs.MaxAbs {
+				rc = 0
+			}
+		}
+		if rc >= 2 {
+			kmid := max(0, left-rc) / 2
+			mc := 0.0
+			for range rc {
+				if err := oracle.MeasureStep(ctx, h, kmid, y, xc, rng); err != nil {
+					return cal, fmt.Errorf("sa: calibration pilot (Settings.Gain is nil), gradient at the Cauchy point x0 − %.3g·u: %w", gnorm/lam, err)
+				}
+				cal.PilotCalls++
+				cal.PilotMeasurements += perCall
+				for _, v := range y {
+					mc += v * v / float64(rc)
+				}
+			}
+			mhat = math.Sqrt(mc)
+			left = stepsLeft()
+			how += fmt.Sprintf("; at the Cauchy point x0 − %.3g·u, with the size c_k of step %d, %d gradient estimates have root mean square M̂ = %.3g (%.3g at x0)", gnorm/lam, kmid, rc, mhat, mhat0)
+		}
 	}
 	capped := ""
 	if left != math.MaxInt {
@@ -206,7 +274,7 @@ func calibrateGradientFree(ctx context.Context, h gradientFree, x0 []float64, rs
 			capped = fmt.Sprintf(", capped at 1/(m·λ̂) = %.3g with m = %.3g (stability)", gamma, m)
 		}
 		cal.Gain = schedule.Constant(gamma)
-		cal.How = fmt.Sprintf("a pilot of %d measurements at x0 found M̂ = %.3g (root mean square of %d gradient estimates) and ‖g‖ ≈ %.3g; %s; so %s = %.3g and the constant step over the N = %d steps left is γ = D̂/(M̂·√N) = %.3g%s, with averaging", cal.PilotMeasurements, mhat, rg, gnorm, how, distHow, dist, n, gamma, capped)
+		cal.How = fmt.Sprintf("a pilot of %d measurements found at x0 M̂ = %.3g (root mean square of %d gradient estimates) and ‖g‖ ≈ %.3g; %s; so %s = %.3g and the constant step over the N = %d steps left is γ = D̂/(M̂·√N) = %.3g%s, with averaging", cal.PilotMeasurements, mhat0, rg, gnorm, how, distHow, dist, n, gamma, capped)
 		return cal, nil
 	}
 	a := dist / mhat

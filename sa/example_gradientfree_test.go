@@ -66,6 +66,6 @@ func Example_spsaDefaultGain() {
 	fmt.Printf("estimate %.2f, %d measurements (pilot %d)\n", res.Estimate(), res.Measurements, cal.PilotMeasurements)
 	fmt.Printf("%T %.2g\n", cal.Gain, cal.Gain.Gain(0))
 	// Output:
-	// estimate [1.95 -0.98], 20000 measurements (pilot 224)
-	// schedule.Constant 0.0016
+	// estimate [1.98 -0.99], 20000 measurements (pilot 424)
+	// schedule.Constant 0.0035
 }
