@@ -28,8 +28,9 @@ const (
 	// CovarianceFull keeps the full d×d matrix: d² numbers, and O(d²) work
 	// each time a batch closes (a vanishing share of the steps). A
 	// dimension at which the matrix and the reported copy (2d² float64s)
-	// would exceed MaxBufferBytes (d > 8191) is refused with
-	// ErrSettings.
+	// would exceed MaxBufferBytes is refused with ErrSettings: d > 8191
+	// with batch means, d > 6687 with random scaling (which keeps a
+	// second d×d matrix).
 	CovarianceFull
 	// CovarianceDiagonal keeps the variances only: standard errors and
 	// intervals per coordinate, no correlations, O(d) memory.
@@ -114,11 +115,15 @@ const DefaultMinBatches = 10
 // than MaxProjectedShare of the averaged steps, and for deterministic runs
 // (ErrorBars.Deterministic).
 //
-// # Other estimators
+// # Estimators
 //
-// Method selects the random-scaling statistic of Lee et al. (2022)
-// instead (MethodRandomScaling): available earlier, diagonal only. Which
-// covers better depends on the problem; TestCoverageTable prints both.
+// By default (Method = MethodAuto) the reported bars are those of the
+// random-scaling statistic of Lee et al. (2022, MethodRandomScaling),
+// which covered better and earlier than batch means in the measurements
+// of TestCoverageTable (see MethodAuto). The batch means described above
+// run beside it in every case: their batches carry the noise memory and
+// the settledness check. Method = MethodBatchMeans reports the batch-means
+// interval instead (Student's t, available later).
 type Inference struct {
 	// Level is the confidence level of the intervals, in (0, 1). 0 means
 	// DefaultLevel (0.95).
@@ -161,9 +166,11 @@ type Inference struct {
 	// the estimated noise memory of the run (see Inference, Noise memory).
 	FixedBatches bool
 
-	// Method chooses the estimator: MethodBatchMeans (the zero value) or
-	// MethodRandomScaling (available earlier; levels 0.90, 0.95, 0.99).
-	// The settledness check runs on the batch means under either.
+	// Method chooses the estimator: MethodAuto (the zero value: random
+	// scaling at levels 0.90, 0.95 and 0.99, batch means at other levels),
+	// MethodRandomScaling (levels 0.90, 0.95, 0.99 only) or
+	// MethodBatchMeans. The settledness check runs on the batch means
+	// under each. Replicate's MethodReplications is not a setting.
 	Method Method
 }
 
@@ -189,6 +196,11 @@ func (in Inference) resolve(d int, g schedule.Schedule) (Inference, error) {
 		return in, settingsErr("Inference.Level = %v: a confidence level must lie strictly between 0 and 1", in.Level)
 	}
 	switch in.Method {
+	case MethodAuto:
+		in.Method = MethodBatchMeans
+		if _, ok := RandomScalingQuantile(in.Level); ok {
+			in.Method = MethodRandomScaling
+		}
 	case MethodBatchMeans:
 	case MethodRandomScaling:
 		if _, ok := RandomScalingQuantile(in.Level); !ok && in.on() {
@@ -216,7 +228,11 @@ func (in Inference) resolve(d int, g schedule.Schedule) (Inference, error) {
 		return in, settingsErr("Inference.MinBatches = %d: an interval needs at least 2 batches (1 degree of freedom)", in.MinBatches)
 	}
 	if in.on() {
-		if need := batchMeansBytes(d, in.Covariance == CovarianceFull); need > MaxBufferBytes {
+		need := batchMeansBytes(d, in.Covariance == CovarianceFull)
+		if in.Method == MethodRandomScaling {
+			need = addBytes(need, randomScalingBytes(d, in.Covariance == CovarianceFull))
+		}
+		if need > MaxBufferBytes {
 			what := "CovarianceDiagonal"
 			if in.Covariance == CovarianceFull {
 				what = "CovarianceFull (a d×d matrix)"
@@ -330,6 +346,10 @@ type batchMeans struct {
 	restarts   int  // times the batches were lengthened
 	projected  int  // averaged iterates that the projection moved
 	closes     int  // batches closed in all (batch 0 and restarts included)
+
+	// rs is the random-scaling accumulator when that is the method (nil
+	// otherwise), fed by tick.
+	rs *randomScaling
 }
 
 func newBatchMeans(d int, in Inference) *batchMeans {
@@ -348,6 +368,9 @@ func newBatchMeans(d int, in Inference) *batchMeans {
 	b.cov = buf[10*d:]
 	b.skip, b.fixed = true, in.FixedBatches
 	b.nextEnd = b.end(0, 0)
+	if in.Method == MethodRandomScaling {
+		b.rs = newRandomScalingOf(d, b.full, in.Level)
+	}
 	return b
 }
 
@@ -386,6 +409,9 @@ func (b *batchMeans) tick(avg []float64) {
 	b.closed = false
 	b.j++
 	b.count++
+	if b.rs != nil {
+		b.rs.add(avg)
+	}
 	if b.j >= b.nextEnd {
 		b.rollOver(avg)
 	}
@@ -475,6 +501,29 @@ func (b *batchMeans) halfWidths(dst []float64, nAvg int) {
 	}
 }
 
+// traceHalfWidths writes into dst the half-widths of the method in use
+// and reports whether the bars would be shown: the estimator has the data
+// for them and the run has settled (see settled). It allocates nothing.
+func (b *batchMeans) traceHalfWidths(dst, avg []float64, nAvg int) bool {
+	if !b.settled() {
+		return false
+	}
+	if rs := b.rs; rs != nil {
+		if !rs.available() || b.memory() == 0 {
+			return false
+		}
+		for i := range dst {
+			dst[i] = rs.q * math.Sqrt(rs.variance(i, avg))
+		}
+		return true
+	}
+	if !b.available() {
+		return false
+	}
+	b.halfWidths(dst, nAvg)
+	return true
+}
+
 // precise reports whether every half-width meets p (see Precision).
 func (b *batchMeans) precise(p *Precision, avg []float64, nAvg int) bool {
 	if why, _ := b.refusal(); why != "" || b.degenerate() {
@@ -521,7 +570,8 @@ const replicationAssumes = "Independent replications: the interval treats the es
 //
 // The interval for coordinate i is Center[i] ± HalfWidth[i], with
 // HalfWidth[i] = Quantile·StdErr[i] and Quantile the (1+Level)/2 quantile
-// of Student's t with DF degrees of freedom.
+// of Student's t with DF degrees of freedom (batch means, replications) or
+// the random-scaling critical value (see Method).
 type ErrorBars struct {
 	// Available reports whether the error bars below exist.
 	Available bool
@@ -537,10 +587,11 @@ type ErrorBars struct {
 	Covariance *mat.SymDense
 	// Level is the confidence level of HalfWidth.
 	Level float64
-	// DF is the number of degrees of freedom of the t quantile.
+	// DF is the number of degrees of freedom of the t quantile (0 for
+	// random scaling).
 	DF int
 	// Quantile is the (1+Level)/2 quantile of Student's t with DF degrees
-	// of freedom.
+	// of freedom, or for random scaling RandomScalingQuantile(Level).
 	Quantile float64
 	// HalfWidth[i] is the half-width of the interval for coordinate i.
 	HalfWidth []float64
@@ -553,8 +604,9 @@ type ErrorBars struct {
 	// means that are all identical. Available is then false and Why says
 	// which; the error of such a run is an optimisation error.
 	Deterministic bool
-	// Method is the estimator behind the bars (replications report
-	// MethodBatchMeans, meaning a t interval).
+	// Method is the estimator behind the bars: MethodRandomScaling,
+	// MethodBatchMeans, or MethodReplications for the bars of Replicate
+	// (MethodAuto when no estimator was set up).
 	Method Method
 	// Unsettled reports that the settledness check found a trend in the
 	// batch means: a transient is still in the average, which biases it
@@ -619,7 +671,7 @@ func (e *ErrorBars) HalfWidthsAt(dst []float64, level float64) ([]float64, error
 
 // errorBars builds the error bars of the average avg of nAvg iterates.
 func (b *batchMeans) errorBars(avg []float64, nAvg int) ErrorBars {
-	e := ErrorBars{Level: b.level, Count: b.batches(), Assumes: batchMeansAssumes}
+	e := ErrorBars{Level: b.level, Count: b.batches(), Assumes: batchMeansAssumes, Method: MethodBatchMeans}
 	// An unsettled run says so first: more batches would not help.
 	if why, unsettled := b.refusal(); why != "" {
 		e.Unsettled = unsettled
