@@ -94,8 +94,8 @@ func ExampleTrace_WriteCSV() {
 	}
 	// Output:
 	// step,measurements,gain,measurement_norm,x_1,average_1,half_width_1
-	// step 2000: average 2.984 ± 0.068
-	// step 4000: average 3 ± 0.032
+	// step 2000: average 2.984, no interval yet
+	// step 4000: average 3, no interval yet
 	// step 6000: average 3 ± 0.021
 	// step 8000: average 2.993 ± 0.023
 	// step 10000: average 2.995 ± 0.013

@@ -338,6 +338,7 @@ type batchMeans struct {
 	sq, within []float64
 	s0, s1     []float64 // Σ y_k and Σ y_k·(x_k − ref) over the batch, y_k = (x_{k+1} − x_k)/a_k
 	wslope     []float64 // pooled Σ y_k·(x_k − x̄⁽ᵐ⁾) of the complete batches
+	wbias      []float64 // Σ over them of 2·v̂_m/a_m, the centring bias of wslope (see memory)
 	gain       float64   // a_k of the last averaged step
 	wdf        float64
 	done       int  // complete batches folded in since the last restart
@@ -362,10 +363,11 @@ func newBatchMeans(d int, in Inference) *batchMeans {
 	if b.full {
 		nc = d * d
 	}
-	buf := make([]float64, 10*d+nc)
+	buf := make([]float64, 11*d+nc)
 	b.ref, b.sum, b.mu, b.dm, b.ctx = buf[:d:d], buf[d:2*d:2*d], buf[2*d:3*d:3*d], buf[3*d:4*d:4*d], buf[4*d:5*d:5*d]
 	b.sq, b.within, b.s0, b.s1, b.wslope = buf[5*d:6*d:6*d], buf[6*d:7*d:7*d], buf[7*d:8*d:8*d], buf[8*d:9*d:9*d], buf[9*d:10*d:10*d]
-	b.cov = buf[10*d:]
+	b.wbias = buf[10*d : 11*d : 11*d]
+	b.cov = buf[11*d:]
 	b.skip, b.fixed = true, in.FixedBatches
 	b.nextEnd = b.end(0, 0)
 	if in.Method == MethodRandomScaling {
@@ -462,8 +464,13 @@ func (b *batchMeans) closeBatch() {
 	b.done++
 	if n > 1 {
 		for i, s := range b.sum {
-			b.within[i] += b.sq[i] - s*s/n       // Σ (x_j − x̄)² = Σ (x_j − ref)² − n(x̄ − ref)²
+			w := b.sq[i] - s*s/n // Σ (x_j − x̄)² = Σ (x_j − ref)² − n(x̄ − ref)²
+			b.within[i] += w
 			b.wslope[i] += b.s1[i] - s/n*b.s0[i] // Σ y_k (x_k − x̄) = Σ y_k (x_k − ref) − (x̄ − ref)·Σ y_k
+			if b.gain > 0 {
+				// The centring bias of this batch's slope sum (see memory).
+				b.wbias[i] += 2 * w / ((n - 1) * b.gain)
+			}
 		}
 		b.wdf += n - 1
 	}

@@ -422,7 +422,7 @@ func TestErrorBarsDeterministicAndCounted(t *testing.T) {
 	o := newStreamLSQ([]float64{1, 2, 3}, 0.3, 1, 4) // mini-batches of 4
 	run := func() sa.Result {
 		r, err := sa.RobbinsMonro(context.Background(), o, make([]float64, 3), sa.Settings{
-			Gain: schedule.Power{Scale: 1, Offset: 5, Exponent: 0.6}, MaxSteps: 12000, Seed: 21,
+			Gain: schedule.Power{Scale: 1, Offset: 5, Exponent: 0.6}, MaxSteps: 20000, Seed: 21,
 			Trace: &sa.Tracing{Every: 1000},
 		})
 		require.NoError(t, err)
@@ -436,7 +436,7 @@ func TestErrorBarsDeterministicAndCounted(t *testing.T) {
 	require.NoError(t, a.Trace.WriteCSV(&ca))
 	require.NoError(t, b.Trace.WriteCSV(&cb))
 	require.Equal(t, ca.String(), cb.String(), "traces differ between identical runs")
-	require.Equal(t, 4*12000, a.Measurements)
+	require.Equal(t, 4*20000, a.Measurements)
 	for p := range a.Trace.All() {
 		require.Equal(t, 4*p.Step, p.Measurements)
 	}
