@@ -55,9 +55,10 @@ const DefaultBatchScale = 3
 // bars are reported when Inference.MinBatches is 0.
 const DefaultMinBatches = 10
 
-// Inference configures the batch-means error bars of the Polyak–Ruppert
-// average. The zero value switches them on with 95% intervals and batches
-// matched to the gain.
+// Inference configures the error bars of the Polyak–Ruppert average. The
+// zero value switches them on with 95% random-scaling intervals (see
+// Method and MethodAuto) and the batch means below running beside them
+// with batches matched to the gain and the noise memory of the run.
 //
 // # Method
 //
@@ -267,9 +268,10 @@ func gainExponent(g schedule.Schedule) float64 {
 }
 
 // Precision stops a run once the error bars are tight enough: when a batch
-// closes (the only time the variance estimate changes; so the check costs
-// O(d) per batch, not per step) and at least Inference.MinBatches batches
-// are complete, the run stops with Reason Precise if for every coordinate i
+// of the batch means closes (so the check costs O(d) per batch, not per
+// step), the bars of the method in use would be shown (for batch means: at
+// least Inference.MinBatches batches are complete; for either: the run has
+// settled), the run stops with Reason Precise if for every coordinate i
 // the confidence half-width h_i satisfies
 //
 //	h_i ≤ Absolute   or   h_i ≤ Relative·|x̄_n,i|.
@@ -278,8 +280,8 @@ func gainExponent(g schedule.Schedule) float64 {
 //
 // Stopping when an estimated error is small selects runs whose variance
 // estimate happened to come out low, so the intervals of a run stopped this
-// way cover somewhat less often than their nominal level; a larger
-// MinBatches reduces the effect.
+// way cover somewhat less often than their nominal level (with batch
+// means a larger MinBatches reduces the effect).
 type Precision struct {
 	Absolute float64
 	Relative float64
@@ -602,7 +604,8 @@ type ErrorBars struct {
 	Quantile float64
 	// HalfWidth[i] is the half-width of the interval for coordinate i.
 	HalfWidth []float64
-	// Count is the number of batches or replications behind the bars.
+	// Count is the number of batches (batch means), averaged iterates
+	// (random scaling) or replications behind the bars.
 	Count int
 	// Assumes is a plain statement of what the bars assume.
 	Assumes string
