@@ -73,7 +73,8 @@ func noInt1Run(t testing.TB, m *oracle.Regression, kind string, batch, steps int
 	}
 	defer g.Close()
 	return sa.MinimizeSum(context.Background(), g, make([]float64, 1), sa.Settings{
-		Gain: schedule.Power{Scale: 0.3, Exponent: 0.6}, MaxSteps: steps, BurnIn: steps / 100, Seed: seed, Inference: in})
+		Gain: schedule.Power{Scale: 0.3, Exponent: 0.6}, MaxSteps: steps, BurnIn: steps / 100, Seed: seed, Inference: in,
+		Trace: &sa.Tracing{Every: 250, Max: 1 << 12}}) // the trace tells when the bars were first shown
 }
 
 // customSampler is a sampler of the caller's (here a wrapped Uniform): the

@@ -1,6 +1,7 @@
 package sa_test
 
 import (
+	"context"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -65,8 +66,29 @@ func pullRun(h oracle.Field, x0 []float64, s sa.Settings, n int) (sa.Result, int
 	return sv.Result(), first, nil
 }
 
-// covConfigs returns the configurations of issue 11, item 1. n scales
-// the run lengths (1 in the long form).
+// firstShown returns the first traced step at which the bars were shown
+// (0 if never or if the run was not traced).
+func firstShown(r sa.Result) int {
+	if r.Trace == nil {
+		return 0
+	}
+	for p := range r.Trace.All() {
+		if p.HalfWidth != nil {
+			return p.Step
+		}
+	}
+	return 0
+}
+
+// covConfigs returns the configurations of issue 11, item 1. The tuner
+// with a decreasing gain is not among them: its error bars are the tuner
+// work's (sa/tuner_*.go), and it has its own check.
+//
+// Sources of the true values: gonum distuv (the median of the exponential,
+// 50·ln 2), closed forms (the kiln's 0.9 point of a logistic curve, the
+// minimiser of the quadratic, the box-constrained root), the generating
+// coefficients of the streaming least-squares problem (lsqBeta), and the
+// NIST StRD NoInt1 certified value (noInt1B1).
 func covConfigs(t testing.TB, long bool) []covConfig {
 	// Median of an exponential latency with mean 50 (the README example's
 	// shape; gonum distuv gives the truth 50·ln 2).
@@ -95,14 +117,25 @@ func covConfigs(t testing.TB, long bool) []covConfig {
 	})
 	noint := noInt1Model(t)
 	nFS := 100000
+	traced := func(s sa.Settings) sa.Settings { s.Trace = &sa.Tracing{Every: 250, Max: 1 << 12}; return s }
 	cfg := []covConfig{
 		{name: "RM scalar: README median, 10^4 steps", truth: median, inDefault: true,
 			run: func(t testing.TB, seed uint64, in sa.Inference) (sa.Result, int, error) {
+				// As in the README: no Gain (a pilot in the budget picks it).
+				r, err := sa.RobbinsMonro(context.Background(), medianField, []float64{100}, traced(sa.Settings{MaxSteps: 10000, Seed: seed, Inference: in}))
+				return r, firstShown(r), err
+			}},
+		{name: "RM scalar: median, gain 5x small, 10^4", truth: median,
+			run: func(t testing.TB, seed uint64, in sa.Inference) (sa.Result, int, error) {
 				return pullRun(medianField, []float64{100}, sa.Settings{Gain: schedule.Power{Scale: 20, Exponent: 0.7}, BurnIn: 1000, Seed: seed, Inference: in}, 10000)
 			}},
-		{name: "RM scalar: kiln, 10^4 steps", truth: kilnTruth,
+		{name: "RM scalar: kiln demo, 10^4 firings", truth: kilnTruth,
 			run: func(t testing.TB, seed uint64, in sa.Inference) (sa.Result, int, error) {
-				return pullRun(kiln, []float64{1150}, sa.Settings{Gain: schedule.Power{Scale: 150, Exponent: 0.7}, BurnIn: 1000, Seed: seed, Inference: in}, 10000)
+				// As in examples/kiln: budget 10^4, burn-in a tenth, the safe range as a box.
+				r, err := sa.RobbinsMonro(context.Background(), kiln, []float64{1150}, traced(sa.Settings{Gain: schedule.Power{Scale: 150, Exponent: 0.7},
+					MaxMeasurements: 10000, MaxSteps: sa.NoLimit, BurnIn: 1000, Seed: seed, Inference: in,
+					Projection: sa.Box{Lower: []float64{1100}, Upper: []float64{1300}}}))
+				return r, firstShown(r), err
 			}},
 		{name: "RM vector: streaming LSQ d=5, 2·10^4", truth: lsqBeta[0], inDefault: true,
 			run: func(t testing.TB, seed uint64, in sa.Inference) (sa.Result, int, error) {
@@ -128,7 +161,10 @@ func covConfigs(t testing.TB, long bool) []covConfig {
 				if err != nil {
 					t.Fatal(err)
 				}
-				return pullRun(g, []float64{0, 0}, sa.Settings{Gain: schedule.Power{Scale: 1, Exponent: 0.7}, BurnIn: 200, Seed: seed, Inference: in}, 20000)
+				// Scale 3 (Offset 10 keeps a_0·λ below 1): the run spans about
+				// 29 noise memories by 2·10^4 steps (n·a_n·λ/2 with λ = 1); with
+				// Scale 1 it spans about 9 and the bars are withheld as unsettled.
+				return pullRun(g, []float64{0, 0}, sa.Settings{Gain: schedule.Power{Scale: 3, Offset: 10, Exponent: 0.7}, BurnIn: 200, Seed: seed, Inference: in}, 20000)
 			}},
 		{name: "SPSA one-measurement, 2·10^4", truth: m[0],
 			run: func(t testing.TB, seed uint64, in sa.Inference) (sa.Result, int, error) {
@@ -150,16 +186,26 @@ func covConfigs(t testing.TB, long bool) []covConfig {
 		{name: "SGD Uniform NoInt1, 10^5", truth: noInt1B1,
 			run: func(t testing.TB, seed uint64, in sa.Inference) (sa.Result, int, error) {
 				r, err := noInt1Run(t, noint, "uniform", 1, nFS, seed, in)
-				return r, 0, err
+				return r, firstShown(r), err
 			}},
 		{name: "MBGD-4 Uniform NoInt1, 10^5", truth: noInt1B1,
 			run: func(t testing.TB, seed uint64, in sa.Inference) (sa.Result, int, error) {
 				r, err := noInt1Run(t, noint, "uniform", 4, nFS, seed, in)
-				return r, 0, err
+				return r, firstShown(r), err
 			}},
 		{name: "SGD Shuffled NoInt1", truth: noInt1B1, refused: true, inDefault: true,
 			run: func(t testing.TB, seed uint64, in sa.Inference) (sa.Result, int, error) {
 				r, err := noInt1Run(t, noint, "shuffled", 1, 20000, seed, in)
+				return r, 0, err
+			}},
+		{name: "SGD BlockShuffled NoInt1", truth: noInt1B1, refused: true,
+			run: func(t testing.TB, seed uint64, in sa.Inference) (sa.Result, int, error) {
+				r, err := noInt1Run(t, noint, "block", 1, 20000, seed, in)
+				return r, 0, err
+			}},
+		{name: "SGD caller's sampler NoInt1", truth: noInt1B1, refused: true,
+			run: func(t testing.TB, seed uint64, in sa.Inference) (sa.Result, int, error) {
+				r, err := noInt1Run(t, noint, "custom", 1, 20000, seed, in)
 				return r, 0, err
 			}},
 		{name: "SGD Sequential NoInt1", truth: noInt1B1, refused: true, deterministic: true, inDefault: true,
@@ -250,32 +296,44 @@ func covStudy(t *testing.T, c covConfig, R int, in sa.Inference) covRow {
 // drivers support, the nominal 95% intervals either cover the true value
 // in [0.92, 0.98] of seeded runs or are refused with a reason.
 //
-// Band: the number of covering runs is Binomial(R, p). For R = 400 and
-// p = 0.95 the band 0.95 ± 0.03 is ±2.75 binomial standard deviations
-// (√(0.95·0.05/400) = 0.0109; normal approximation, common practice) —
-// the band issue 11 asks for. The default run (no STOCHROOT_LONG_TESTS)
-// checks the configurations marked inDefault with R = 150 and the band
-// 0.95 ± 3·√(0.95·0.05/150) = 0.95 ± 0.053 (±3 binomial standard
-// deviations, probability about 0.997 for a correct method).
+// Methods: random scaling (RS, the default; Lee, Liao, Seo & Shin 2022,
+// AAAI 36(7)) and batch means (BM; Chen, Lee, Tong & Zhang 2020, Ann.
+// Statist. 48(1)), on the same seeds. The default method is asserted; the
+// batch-means rows are printed for comparison.
 //
-// Truths: gonum distuv (the median), closed forms (kiln, quadratic), NIST
-// StRD NoInt1 certified B1 (see noInt1B1). The "true SE" column is the
-// root-mean-square error of the estimates about the truth over the runs;
-// the half-width of a 95% interval should be about 1.96 times it.
+// Band: the number of covering runs among the A runs that show bars is
+// Binomial(A, p). For A = 400 and p = 0.95 the band 0.95 ± 0.03 is ±2.75
+// binomial standard deviations (√(0.95·0.05/400) = 0.0109; normal
+// approximation, common practice) — the band issue 11 asks for. Rows
+// where some runs withhold their bars are judged on the runs that show
+// them, with the band 0.95 ± 2.75·√(0.95·0.05/A) for their number A
+// (so that a configuration whose shown intervals undercover is caught,
+// and one whose few shown intervals are few is not condemned by chance).
+// The default run (no STOCHROOT_LONG_TESTS) checks the configurations
+// marked inDefault with R = 150 and ±3 binomial standard deviations
+// (probability about 0.997 for a correct method).
+//
+// Truths: see covConfigs. The "RMS error" column is the root-mean-square
+// error of the estimates about the truth over all runs; "half/1.96·RMS"
+// is the mean half-width of the shown intervals over 1.96 times it (about
+// 1 for a normal interval of the right width; random scaling's is wider
+// on average, about 1.2–1.3, by the nature of its limit law). "first" is
+// the median step at which the bars were first shown (checked every 250
+// steps).
 func TestCoverageTable(t *testing.T) {
 	long := longTests()
 	R := 150
 	if long {
 		R = 400
 	}
-	methods := []sa.Method{sa.MethodRandomScaling, sa.MethodBatchMeans}
+	methods := []sa.Method{sa.MethodAuto, sa.MethodBatchMeans}
 	if !long {
 		// Batch means on the same least-squares problem is checked with
 		// R = 400 by TestReferenceBatchMeansCoverage.
 		methods = methods[:1]
 	}
 	var b strings.Builder
-	fmt.Fprintf(&b, "\n%-38s %-6s %5s %7s %9s %11s %11s %6s  %s\n", "configuration", "method", "runs", "bars", "coverage", "half-width", "RMS error", "first", "verdict / reason")
+	fmt.Fprintf(&b, "\n%-40s %-4s %5s %5s %8s %13s %10s %11s %6s  %s\n", "configuration", "meth", "runs", "bars", "coverage", "band", "RMS error", "half/1.96RMS", "first", "verdict / reason")
 	for _, c := range covConfigs(t, long) {
 		if !long && !c.inDefault {
 			continue
@@ -286,42 +344,54 @@ func TestCoverageTable(t *testing.T) {
 				R = min(R, 20) // a refusal is a property of the configuration, not of chance
 			}
 			row := covStudy(t, c, R, sa.Inference{Method: meth})
-			name := map[sa.Method]string{sa.MethodBatchMeans: "BM", sa.MethodRandomScaling: "RS"}[meth]
+			name := map[sa.Method]string{sa.MethodBatchMeans: "BM", sa.MethodAuto: "RS"}[meth]
 			verdict := ""
 			p := float64(row.cover) / float64(max(row.avail, 1))
-			lo, hi := 0.92, 0.98
+			k := 2.75
 			if !long {
-				band := 3 * math.Sqrt(0.95*0.05/float64(R))
-				lo, hi = 0.95-band, 0.95+band
+				k = 3
 			}
+			band := k * math.Sqrt(0.95*0.05/float64(max(row.avail, 1)))
+			lo, hi := 0.95-band, math.Min(0.95+band, 1)
+			bandStr := "-"
+			if row.avail > 0 {
+				bandStr = fmt.Sprintf("[%.3f,%.3f]", lo, hi)
+			}
+			fail := false
 			switch {
 			case c.refused && row.avail == 0:
 				verdict = "refused: " + short(row.why)
 			case c.refused:
 				verdict = "FAIL: bars reported"
-				t.Errorf("%s (%s): %d of %d runs report bars, want none", c.name, name, row.avail, R)
-			case row.avail < R/2 && row.avail > 0 && (p < lo || p > hi):
-				// Mostly withheld, but the few runs let through do not
-				// cover at the nominal level: a known gap (see the report of
-				// issue 11), printed, not hidden.
-				verdict = fmt.Sprintf("PARTLY withheld (%d runs), those shown cover %.3f: %s", R-row.avail, p, short(row.why))
-			case row.avail < R/2:
-				verdict = fmt.Sprintf("not available in %d runs: %s", R-row.avail, short(row.why))
+				fail = true
+			case row.avail == 0:
+				verdict = "withheld in every run: " + short(row.why)
+			case p >= lo && p <= hi && row.avail < R:
+				verdict = fmt.Sprintf("in band; withheld in %d runs: %s", R-row.avail, short(row.why))
 			case p >= lo && p <= hi:
 				verdict = "in band"
 			default:
-				verdict = fmt.Sprintf("OUT of band [%.3f, %.3f]", lo, hi)
-				if c.inDefault || meth == sa.MethodRandomScaling {
-					t.Errorf("%s (%s): coverage %.3f of %d runs with bars, want in [%.3f, %.3f]", c.name, name, p, row.avail, lo, hi)
+				verdict = "OUT of band"
+				if row.avail < R {
+					verdict += fmt.Sprintf(" (withheld in %d runs)", R-row.avail)
 				}
+				fail = meth == sa.MethodAuto
+			}
+			if fail {
+				t.Errorf("%s (%s): %s: %d of %d runs show bars, coverage %.3f, band [%.3f, %.3f]", c.name, name, verdict, row.avail, R, p, lo, hi)
 			}
 			cov := "-"
 			if row.avail > 0 {
 				cov = fmt.Sprintf("%.3f", p)
 			}
-			fmt.Fprintf(&b, "%-38s %-6s %5d %7d %9s %11.3g %11.3g %6d  %s\n", c.name, name, R, row.avail, cov, row.meanHalf, row.trueSE, row.medianFirst, verdict)
+			ratio := "-"
+			if row.avail > 0 && row.trueSE > 0 {
+				ratio = fmt.Sprintf("%.2f", row.meanHalf/(1.96*row.trueSE))
+			}
+			fmt.Fprintf(&b, "%-40s %-4s %5d %5d %8s %13s %10.3g %11s %6d  %s\n", c.name, name, R, row.avail, cov, bandStr, row.trueSE, ratio, row.medianFirst, verdict)
 		}
 	}
+	b.WriteString("tuner with a decreasing gain: not in this table (its error bars belong to the tuner work, sa/tuner_*.go)\n")
 	t.Log(b.String())
 }
 

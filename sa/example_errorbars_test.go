@@ -11,8 +11,8 @@ import (
 	"github.com/stochroot/stochroot/schedule"
 )
 
-// The root of a noisy field with batch-means error bars, stopping once the
-// 95% intervals are narrower than ±0.01.
+// The root of a noisy field with error bars (random scaling, the default
+// method), stopping once the 95% intervals are narrower than ±0.01.
 func ExampleRobbinsMonro_errorBars() {
 	root := []float64{2, -1}
 	h := oracle.FieldFunc(func(dst, x []float64, rng *rand.Rand) error {
@@ -35,12 +35,12 @@ func ExampleRobbinsMonro_errorBars() {
 	for i, x := range r.Average {
 		fmt.Printf("x_%d = %.4g ± %.2g (truth %g)\n", i+1, x, r.ErrorBars.HalfWidth[i], root[i])
 	}
-	fmt.Printf("%d batches, %d steps\n", r.ErrorBars.Count, r.Steps)
+	fmt.Printf("%d steps\n", r.Steps)
 	// Output:
 	// stopped: confidence intervals within tolerance
-	// x_1 = 2.005 ± 0.0091 (truth 2)
-	// x_2 = -1.004 ± 0.01 (truth -1)
-	// 11 batches, 7776 steps
+	// x_1 = 2.003 ± 0.0062 (truth 2)
+	// x_2 = -1.003 ± 0.0098 (truth -1)
+	// 9499 steps
 }
 
 // Ten independent runs and the Student-t interval of their mean.
@@ -65,8 +65,8 @@ func ExampleReplicate() {
 	// root ≈ 3.003, 95% interval [2.986, 3.021] from 10 runs (t quantile 2.262)
 }
 
-// A run traced every 500 steps, written as CSV. Half-widths are empty until
-// enough batches are complete.
+// A run traced every 2000 steps, written as CSV. Half-widths are empty
+// until the error bars would be shown (enough data, a settled run).
 func ExampleTrace_WriteCSV() {
 	h := oracle.Scalar(func(x float64, rng *rand.Rand) (float64, error) {
 		return x - 3 + rng.NormFloat64(), nil
@@ -96,7 +96,7 @@ func ExampleTrace_WriteCSV() {
 	// step,measurements,gain,measurement_norm,x_1,average_1,half_width_1
 	// step 2000: average 2.984, no interval yet
 	// step 4000: average 3, no interval yet
-	// step 6000: average 3, no interval yet
-	// step 8000: average 2.993 ± 0.018
-	// step 10000: average 2.995 ± 0.015
+	// step 6000: average 3 ± 0.021
+	// step 8000: average 2.993 ± 0.023
+	// step 10000: average 2.995 ± 0.013
 }

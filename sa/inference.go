@@ -28,8 +28,9 @@ const (
 	// CovarianceFull keeps the full d×d matrix: d² numbers, and O(d²) work
 	// each time a batch closes (a vanishing share of the steps). A
 	// dimension at which the matrix and the reported copy (2d² float64s)
-	// would exceed MaxBufferBytes (d > 8191) is refused with
-	// ErrSettings.
+	// would exceed MaxBufferBytes is refused with ErrSettings: d > 8191
+	// with batch means, d > 6687 with random scaling (which keeps a
+	// second d×d matrix).
 	CovarianceFull
 	// CovarianceDiagonal keeps the variances only: standard errors and
 	// intervals per coordinate, no correlations, O(d) memory.
@@ -54,9 +55,10 @@ const DefaultBatchScale = 3
 // bars are reported when Inference.MinBatches is 0.
 const DefaultMinBatches = 10
 
-// Inference configures the batch-means error bars of the Polyak–Ruppert
-// average. The zero value switches them on with 95% intervals and batches
-// matched to the gain.
+// Inference configures the error bars of the Polyak–Ruppert average. The
+// zero value switches them on with 95% random-scaling intervals (see
+// Method and MethodAuto) and the batch means below running beside them
+// with batches matched to the gain and the noise memory of the run.
 //
 // # Method
 //
@@ -114,11 +116,15 @@ const DefaultMinBatches = 10
 // than MaxProjectedShare of the averaged steps, and for deterministic runs
 // (ErrorBars.Deterministic).
 //
-// # Other estimators
+// # Estimators
 //
-// Method selects the random-scaling statistic of Lee et al. (2022)
-// instead (MethodRandomScaling): available earlier, diagonal only. Which
-// covers better depends on the problem; TestCoverageTable prints both.
+// By default (Method = MethodAuto) the reported bars are those of the
+// random-scaling statistic of Lee et al. (2022, MethodRandomScaling),
+// which covered better and earlier than batch means in the measurements
+// of TestCoverageTable (see MethodAuto). The batch means described above
+// run beside it in every case: their batches carry the noise memory and
+// the settledness check. Method = MethodBatchMeans reports the batch-means
+// interval instead (Student's t, available later).
 type Inference struct {
 	// Level is the confidence level of the intervals, in (0, 1). 0 means
 	// DefaultLevel (0.95).
@@ -161,9 +167,11 @@ type Inference struct {
 	// the estimated noise memory of the run (see Inference, Noise memory).
 	FixedBatches bool
 
-	// Method chooses the estimator: MethodBatchMeans (the zero value) or
-	// MethodRandomScaling (available earlier; levels 0.90, 0.95, 0.99).
-	// The settledness check runs on the batch means under either.
+	// Method chooses the estimator: MethodAuto (the zero value: random
+	// scaling at levels 0.90, 0.95 and 0.99, batch means at other levels),
+	// MethodRandomScaling (levels 0.90, 0.95, 0.99 only) or
+	// MethodBatchMeans. The settledness check runs on the batch means
+	// under each. Replicate's MethodReplications is not a setting.
 	Method Method
 }
 
@@ -189,6 +197,11 @@ func (in Inference) resolve(d int, g schedule.Schedule) (Inference, error) {
 		return in, settingsErr("Inference.Level = %v: a confidence level must lie strictly between 0 and 1", in.Level)
 	}
 	switch in.Method {
+	case MethodAuto:
+		in.Method = MethodBatchMeans
+		if _, ok := RandomScalingQuantile(in.Level); ok {
+			in.Method = MethodRandomScaling
+		}
 	case MethodBatchMeans:
 	case MethodRandomScaling:
 		if _, ok := RandomScalingQuantile(in.Level); !ok && in.on() {
@@ -216,7 +229,11 @@ func (in Inference) resolve(d int, g schedule.Schedule) (Inference, error) {
 		return in, settingsErr("Inference.MinBatches = %d: an interval needs at least 2 batches (1 degree of freedom)", in.MinBatches)
 	}
 	if in.on() {
-		if need := batchMeansBytes(d, in.Covariance == CovarianceFull); need > MaxBufferBytes {
+		need := batchMeansBytes(d, in.Covariance == CovarianceFull)
+		if in.Method == MethodRandomScaling {
+			need = addBytes(need, randomScalingBytes(d, in.Covariance == CovarianceFull))
+		}
+		if need > MaxBufferBytes {
 			what := "CovarianceDiagonal"
 			if in.Covariance == CovarianceFull {
 				what = "CovarianceFull (a d×d matrix)"
@@ -251,9 +268,10 @@ func gainExponent(g schedule.Schedule) float64 {
 }
 
 // Precision stops a run once the error bars are tight enough: when a batch
-// closes (the only time the variance estimate changes; so the check costs
-// O(d) per batch, not per step) and at least Inference.MinBatches batches
-// are complete, the run stops with Reason Precise if for every coordinate i
+// of the batch means closes (so the check costs O(d) per batch, not per
+// step), the bars of the method in use would be shown (for batch means: at
+// least Inference.MinBatches batches are complete; for either: the run has
+// settled), the run stops with Reason Precise if for every coordinate i
 // the confidence half-width h_i satisfies
 //
 //	h_i ≤ Absolute   or   h_i ≤ Relative·|x̄_n,i|.
@@ -262,8 +280,8 @@ func gainExponent(g schedule.Schedule) float64 {
 //
 // Stopping when an estimated error is small selects runs whose variance
 // estimate happened to come out low, so the intervals of a run stopped this
-// way cover somewhat less often than their nominal level; a larger
-// MinBatches reduces the effect.
+// way cover somewhat less often than their nominal level (with batch
+// means a larger MinBatches reduces the effect).
 type Precision struct {
 	Absolute float64
 	Relative float64
@@ -322,6 +340,7 @@ type batchMeans struct {
 	sq, within []float64
 	s0, s1     []float64 // Σ y_k and Σ y_k·(x_k − ref) over the batch, y_k = (x_{k+1} − x_k)/a_k
 	wslope     []float64 // pooled Σ y_k·(x_k − x̄⁽ᵐ⁾) of the complete batches
+	wbias      []float64 // Σ over them of 2·v̂_m/a_m, the centring bias of wslope (see memory)
 	gain       float64   // a_k of the last averaged step
 	wdf        float64
 	done       int  // complete batches folded in since the last restart
@@ -330,6 +349,10 @@ type batchMeans struct {
 	restarts   int  // times the batches were lengthened
 	projected  int  // averaged iterates that the projection moved
 	closes     int  // batches closed in all (batch 0 and restarts included)
+
+	// rs is the random-scaling accumulator when that is the method (nil
+	// otherwise), fed by tick.
+	rs *randomScaling
 }
 
 func newBatchMeans(d int, in Inference) *batchMeans {
@@ -342,12 +365,16 @@ func newBatchMeans(d int, in Inference) *batchMeans {
 	if b.full {
 		nc = d * d
 	}
-	buf := make([]float64, 10*d+nc)
+	buf := make([]float64, 11*d+nc)
 	b.ref, b.sum, b.mu, b.dm, b.ctx = buf[:d:d], buf[d:2*d:2*d], buf[2*d:3*d:3*d], buf[3*d:4*d:4*d], buf[4*d:5*d:5*d]
 	b.sq, b.within, b.s0, b.s1, b.wslope = buf[5*d:6*d:6*d], buf[6*d:7*d:7*d], buf[7*d:8*d:8*d], buf[8*d:9*d:9*d], buf[9*d:10*d:10*d]
-	b.cov = buf[10*d:]
+	b.wbias = buf[10*d : 11*d : 11*d]
+	b.cov = buf[11*d:]
 	b.skip, b.fixed = true, in.FixedBatches
 	b.nextEnd = b.end(0, 0)
+	if in.Method == MethodRandomScaling {
+		b.rs = newRandomScalingOf(d, b.full, in.Level)
+	}
 	return b
 }
 
@@ -386,6 +413,9 @@ func (b *batchMeans) tick(avg []float64) {
 	b.closed = false
 	b.j++
 	b.count++
+	if b.rs != nil {
+		b.rs.add(avg)
+	}
 	if b.j >= b.nextEnd {
 		b.rollOver(avg)
 	}
@@ -436,8 +466,13 @@ func (b *batchMeans) closeBatch() {
 	b.done++
 	if n > 1 {
 		for i, s := range b.sum {
-			b.within[i] += b.sq[i] - s*s/n       // Σ (x_j − x̄)² = Σ (x_j − ref)² − n(x̄ − ref)²
+			w := b.sq[i] - s*s/n // Σ (x_j − x̄)² = Σ (x_j − ref)² − n(x̄ − ref)²
+			b.within[i] += w
 			b.wslope[i] += b.s1[i] - s/n*b.s0[i] // Σ y_k (x_k − x̄) = Σ y_k (x_k − ref) − (x̄ − ref)·Σ y_k
+			if b.gain > 0 {
+				// The centring bias of this batch's slope sum (see memory).
+				b.wbias[i] += 2 * w / ((n - 1) * b.gain)
+			}
 		}
 		b.wdf += n - 1
 	}
@@ -473,6 +508,29 @@ func (b *batchMeans) halfWidths(dst []float64, nAvg int) {
 	for i := range dst {
 		dst[i] = b.q * math.Sqrt(b.variance(i, nAvg))
 	}
+}
+
+// traceHalfWidths writes into dst the half-widths of the method in use
+// and reports whether the bars would be shown: the estimator has the data
+// for them and the run has settled (see settled). It allocates nothing.
+func (b *batchMeans) traceHalfWidths(dst, avg []float64, nAvg int) bool {
+	if !b.settled() {
+		return false
+	}
+	if rs := b.rs; rs != nil {
+		if !rs.available() || b.memory() == 0 {
+			return false
+		}
+		for i := range dst {
+			dst[i] = rs.q * math.Sqrt(rs.variance(i, avg))
+		}
+		return true
+	}
+	if !b.available() {
+		return false
+	}
+	b.halfWidths(dst, nAvg)
+	return true
 }
 
 // precise reports whether every half-width meets p (see Precision).
@@ -521,7 +579,8 @@ const replicationAssumes = "Independent replications: the interval treats the es
 //
 // The interval for coordinate i is Center[i] ± HalfWidth[i], with
 // HalfWidth[i] = Quantile·StdErr[i] and Quantile the (1+Level)/2 quantile
-// of Student's t with DF degrees of freedom.
+// of Student's t with DF degrees of freedom (batch means, replications) or
+// the random-scaling critical value (see Method).
 type ErrorBars struct {
 	// Available reports whether the error bars below exist.
 	Available bool
@@ -537,14 +596,16 @@ type ErrorBars struct {
 	Covariance *mat.SymDense
 	// Level is the confidence level of HalfWidth.
 	Level float64
-	// DF is the number of degrees of freedom of the t quantile.
+	// DF is the number of degrees of freedom of the t quantile (0 for
+	// random scaling).
 	DF int
 	// Quantile is the (1+Level)/2 quantile of Student's t with DF degrees
-	// of freedom.
+	// of freedom, or for random scaling RandomScalingQuantile(Level).
 	Quantile float64
 	// HalfWidth[i] is the half-width of the interval for coordinate i.
 	HalfWidth []float64
-	// Count is the number of batches or replications behind the bars.
+	// Count is the number of batches (batch means), averaged iterates
+	// (random scaling) or replications behind the bars.
 	Count int
 	// Assumes is a plain statement of what the bars assume.
 	Assumes string
@@ -553,8 +614,9 @@ type ErrorBars struct {
 	// means that are all identical. Available is then false and Why says
 	// which; the error of such a run is an optimisation error.
 	Deterministic bool
-	// Method is the estimator behind the bars (replications report
-	// MethodBatchMeans, meaning a t interval).
+	// Method is the estimator behind the bars: MethodRandomScaling,
+	// MethodBatchMeans, or MethodReplications for the bars of Replicate
+	// (MethodAuto when no estimator was set up).
 	Method Method
 	// Unsettled reports that the settledness check found a trend in the
 	// batch means: a transient is still in the average, which biases it
@@ -619,7 +681,7 @@ func (e *ErrorBars) HalfWidthsAt(dst []float64, level float64) ([]float64, error
 
 // errorBars builds the error bars of the average avg of nAvg iterates.
 func (b *batchMeans) errorBars(avg []float64, nAvg int) ErrorBars {
-	e := ErrorBars{Level: b.level, Count: b.batches(), Assumes: batchMeansAssumes}
+	e := ErrorBars{Level: b.level, Count: b.batches(), Assumes: batchMeansAssumes, Method: MethodBatchMeans}
 	// An unsettled run says so first: more batches would not help.
 	if why, unsettled := b.refusal(); why != "" {
 		e.Unsettled = unsettled

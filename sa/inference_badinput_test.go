@@ -121,12 +121,25 @@ func TestMaxBufferBytesBoundary(t *testing.T) {
 	if d != 8191 {
 		t.Errorf("largest full covariance within MaxBufferBytes has d = %d; the CovarianceFull doc says 8191", d)
 	}
-	in := sa.Inference{Covariance: sa.CovarianceFull}
+	in := sa.Inference{Covariance: sa.CovarianceFull, Method: sa.MethodBatchMeans}
 	s := sa.Settings{Gain: gain, Inference: in, MaxSteps: 0}
 	// Refused at d+1 with the byte count in the message.
 	_, err := sa.NewSolver(shifted, make([]float64, d+1), s)
 	if !errors.Is(err, sa.ErrSettings) || !strings.Contains(err.Error(), strconv.Itoa(need(d+1))) {
 		t.Errorf("d = %d: error %v, want ErrSettings with %d bytes", d+1, err, need(d+1))
+	}
+	// Random scaling (the default method) keeps another 2d + d² numbers.
+	needRS := func(d int) int { return need(d) + 8*(2*d+d*d) }
+	d = 1
+	for needRS(d+1) <= sa.MaxBufferBytes {
+		d++
+	}
+	if d != 6687 {
+		t.Errorf("largest full covariance with random scaling within MaxBufferBytes has d = %d; the CovarianceFull doc says 6687", d)
+	}
+	s.Inference.Method = sa.MethodAuto
+	if _, err := sa.NewSolver(shifted, make([]float64, d+1), s); !errors.Is(err, sa.ErrSettings) || !strings.Contains(err.Error(), strconv.Itoa(needRS(d+1))) {
+		t.Errorf("random scaling, d = %d: error %v, want ErrSettings with %d bytes", d+1, err, needRS(d+1))
 	}
 	// Diagonal at the same dimension is fine (and small).
 	s.Inference.Covariance = sa.CovarianceDiagonal

@@ -110,8 +110,8 @@ func TestStepAllocsWithInference(t *testing.T) {
 	for _, mode := range []CovarianceMode{CovarianceFull, CovarianceDiagonal} {
 		const d = 8
 		s, err := Settings{
-			Gain:      schedule.Power{Scale: 0.5, Exponent: 0.6},
-			Inference: Inference{Covariance: mode, MinBatches: 2, BatchScale: 1},
+			Gain:      schedule.Power{Scale: 1.5, Exponent: 0.6},
+			Inference: Inference{Covariance: mode, MinBatches: 2, BatchScale: 2},
 			Precision: &Precision{Absolute: 1e-12},
 			Trace:     &Tracing{Every: 3, Max: 16},
 		}.resolve(d)

@@ -28,7 +28,7 @@ func lsqSettings(alpha float64, n int) sa.Settings {
 	return sa.Settings{
 		Gain:      schedule.Power{Scale: 1.5, Offset: 10, Exponent: alpha},
 		MaxSteps:  n,
-		Inference: sa.Inference{BatchScale: 3},
+		Inference: sa.Inference{BatchScale: 3, Method: sa.MethodBatchMeans},
 	}
 }
 
@@ -124,12 +124,16 @@ func TestReferenceBatchMeansCoverage(t *testing.T) {
 	for _, n := range ns {
 		cover, avail, _ := lsqStudy(t, R, n, 0.6, 11)
 		// Runs without bars are those the settledness check marks
-		// unsettled (sa.TrendFalseAlarm = 0.001 per run for a settled run
-		// with independent normal batch means; measured 2 of 400 here,
-		// where the short early batches of SGD are over-dispersed). More
-		// than 1% would mean the check fires on settled runs.
-		if float64(R-avail) > 0.01*float64(R) {
-			t.Fatalf("n = %d: %d of %d runs have error bars, want at least 99%%", n, avail, R)
+		// unsettled: a trend (sa.TrendFalseAlarm = 0.001 per run for a
+		// settled run; its rate is checked by TestSettlednessFalseAlarm),
+		// or an estimated span below sa.SettledMemories. At n = 20 000 the
+		// slowest direction (λ_min = 0.54) spans n·a_n·λ_min/2 ≈ 21 noise
+		// memories in theory, so the runs whose estimate falls below 15
+		// are withheld: measured 30 of 400 (7.5%) with the bias-corrected
+		// memory estimate. More than 10% would mean the gate withholds
+		// settled runs well beyond its threshold.
+		if float64(R-avail) > 0.10*float64(R) {
+			t.Fatalf("n = %d: %d of %d runs have error bars, want at least 90%%", n, avail, R)
 		}
 		band := 3 * math.Sqrt(0.95*0.05/float64(avail))
 		for i, c := range cover {

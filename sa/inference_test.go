@@ -116,13 +116,33 @@ func TestErrorBarsNotYetAvailable(t *testing.T) {
 	require.ErrorIs(t, r.ErrorBars.Err(), sa.ErrNotAvailable)
 }
 
-// TestHalfWidthsAtLevel checks HalfWidthsAt against gonum's t quantiles and
-// rejects levels outside (0, 1).
+// TestHalfWidthsAtLevel checks HalfWidthsAt against gonum's t quantiles
+// (batch means) and RandomScalingQuantile (the default, random scaling),
+// and rejects levels outside (0, 1) and, for random scaling, levels
+// without a known critical value.
 func TestHalfWidthsAtLevel(t *testing.T) {
 	r, err := sa.RobbinsMonro(context.Background(), noisyLinearRoot([]float64{3, -1}), []float64{0, 0},
 		sa.Settings{Gain: schedule.Power{Scale: 1, Exponent: 0.6}, MaxSteps: 20000})
 	require.NoError(t, err)
 	e := r.ErrorBars
+	require.NoError(t, e.Err())
+	require.Equal(t, sa.MethodRandomScaling, e.Method)
+	for _, level := range []float64{0.9, 0.95, 0.99} {
+		h, err := e.HalfWidthsAt(nil, level)
+		require.NoError(t, err)
+		q, _ := sa.RandomScalingQuantile(level)
+		for i := range h {
+			require.InDelta(t, q*e.StdErr[i], h[i], 1e-15*h[i])
+		}
+	}
+	if _, err := e.HalfWidthsAt(nil, 0.5); !errors.Is(err, sa.ErrSettings) {
+		t.Errorf("random scaling at level 0.5: error %v, want ErrSettings", err)
+	}
+	r, err = sa.RobbinsMonro(context.Background(), noisyLinearRoot([]float64{3, -1}), []float64{0, 0},
+		sa.Settings{Gain: schedule.Power{Scale: 1, Exponent: 0.6}, MaxSteps: 20000, Inference: sa.Inference{Method: sa.MethodBatchMeans}})
+	require.NoError(t, err)
+	e = r.ErrorBars
+	require.Equal(t, sa.MethodBatchMeans, e.Method)
 	require.NoError(t, e.Err())
 	for _, level := range []float64{0.5, 0.9, 0.99} {
 		h, err := e.HalfWidthsAt(nil, level)
@@ -402,7 +422,7 @@ func TestErrorBarsDeterministicAndCounted(t *testing.T) {
 	o := newStreamLSQ([]float64{1, 2, 3}, 0.3, 1, 4) // mini-batches of 4
 	run := func() sa.Result {
 		r, err := sa.RobbinsMonro(context.Background(), o, make([]float64, 3), sa.Settings{
-			Gain: schedule.Power{Scale: 1, Offset: 5, Exponent: 0.6}, MaxSteps: 12000, Seed: 21,
+			Gain: schedule.Power{Scale: 1, Offset: 5, Exponent: 0.6}, MaxSteps: 20000, Seed: 21,
 			Trace: &sa.Tracing{Every: 1000},
 		})
 		require.NoError(t, err)
@@ -416,7 +436,7 @@ func TestErrorBarsDeterministicAndCounted(t *testing.T) {
 	require.NoError(t, a.Trace.WriteCSV(&ca))
 	require.NoError(t, b.Trace.WriteCSV(&cb))
 	require.Equal(t, ca.String(), cb.String(), "traces differ between identical runs")
-	require.Equal(t, 4*12000, a.Measurements)
+	require.Equal(t, 4*20000, a.Measurements)
 	for p := range a.Trace.All() {
 		require.Equal(t, 4*p.Step, p.Measurements)
 	}

@@ -10,9 +10,12 @@ import (
 
 // TestRandomScalingDirect checks the on-line V_n (with its moving centre)
 // against the definition of Lee, Liao, Seo & Shin (2022),
-// V_n = (1/n²) Σ_{s=1}^{n} s² (x̄_s − x̄_n)², computed directly from the
-// stored path; the two must agree to rounding (relative 1e-9), also for a
-// path far from 0 whose spread is tiny (where a sum about 0 would cancel).
+// V_n = (1/n²) Σ_s w_s (x̄_s − x̄_n)², computed directly from the stored
+// path with the grid weights w_s of MethodRandomScaling (s² on every
+// step up to 2048, m·s² on every m-th step beyond; TestRandomScalingGrid
+// compares the grid with the sum over every s); the two must agree to
+// rounding (relative 1e-9), also for a path far from 0 whose spread is
+// tiny (where a sum about 0 would cancel).
 func TestRandomScalingDirect(t *testing.T) {
 	const n = 3000
 	rng := rand.New(rand.NewPCG(5, 6))
@@ -32,6 +35,20 @@ func TestRandomScalingDirect(t *testing.T) {
 		for s, p := range path {
 			d := p[i] - avg[i]
 			v += float64((s+1)*(s+1)) * d * d
+		}
+		v /= n * n
+		// Grid weights: the spacing doubles at s = 2·1024.
+		v = 0
+		for s, p := range path {
+			w := 0.0
+			switch {
+			case s+1 <= 2*randomScalingGrid:
+				w = 1
+			case (s+1)%2 == 0:
+				w = 2
+			}
+			d := p[i] - avg[i]
+			v += w * float64((s+1)*(s+1)) * d * d
 		}
 		v /= n * n
 		got := rs.variance(i, avg) * n // V_n,ii
@@ -90,4 +107,72 @@ func TestRandomScalingQuantiles(t *testing.T) {
 			t.Errorf("level %v: table %v, simulated %v ± %v", level, q, out[k], tol)
 		}
 	}
+}
+
+// TestRandomScalingGrid checks the grid sum of randomScaling (see
+// MethodRandomScaling) against the exact V_n of Lee, Liao, Seo & Shin
+// (2022), Σ_{s=1}^{n} s²(x̄_s − x̄_n)(x̄_s − x̄_n)ᵀ/n², computed in
+// two passes, on a random path (AR(1) iterates about a drifting mean,
+// d = 3, n = 60 000, so that the grid spacing reaches 32).
+//
+// Tolerance: on a grid cell (s − m, s] with m ≤ s/1024 the weight s²
+// changes by at most 2m/s ≤ 0.2% and the running mean x̄ by at most m/s
+// of the spread of the iterates, so the Riemann sum differs from the
+// exact sum by well under 1% of the largest diagonal entry; we accept 1%.
+func TestRandomScalingGrid(t *testing.T) {
+	const d, n = 3, 60000
+	rng := rand.New(rand.NewPCG(3, 4))
+	xs := make([][]float64, n)
+	x := make([]float64, d)
+	for s := range n {
+		for i := range x {
+			x[i] = 0.95*x[i] + rng.NormFloat64() + 1e-4*float64(i)*float64(s)/100
+		}
+		xs[s] = append([]float64(nil), x...)
+	}
+	for _, full := range []bool{true, false} {
+		rs := newRandomScalingOf(d, full, 0.95)
+		avg := make([]float64, d)
+		avgs := make([][]float64, n)
+		for s, v := range xs {
+			for i := range avg {
+				avg[i] += (v[i] - avg[i]) / float64(s+1)
+			}
+			avgs[s] = append([]float64(nil), avg...)
+			rs.add(avg)
+		}
+		scale := 0.0
+		for i := range d {
+			scale = max(scale, exactV(avgs, i, i))
+		}
+		for i := range d {
+			for k := range d {
+				want := exactV(avgs, i, k)
+				got := rs.cov(i, k, avg) / (n * n)
+				if !full && i != k {
+					if got != 0 {
+						t.Errorf("diagonal accumulator: V[%d][%d] = %g, want 0", i, k, got)
+					}
+					continue
+				}
+				if math.Abs(got-want) > 0.01*scale {
+					t.Errorf("full=%v: V[%d][%d] = %.6g, exact %.6g", full, i, k, got, want)
+				}
+			}
+		}
+		if v := rs.variance(0, avg); math.Abs(v-exactV(avgs, 0, 0)/n) > 0.01*scale/n {
+			t.Errorf("variance(0) = %g, exact %g", v, exactV(avgs, 0, 0)/n)
+		}
+	}
+}
+
+func exactV(avgs [][]float64, i, k int) float64 {
+	n := len(avgs)
+	last := avgs[n-1]
+	sum := 0.0
+	for s, a := range avgs {
+		w := float64(s+1) * float64(s+1)
+		sum += w * (a[i] - last[i]) * (a[k] - last[k])
+	}
+	return sum / float64(n) / float64(n)
 }

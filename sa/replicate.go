@@ -182,7 +182,7 @@ func Replicate(ctx context.Context, s Replications, run RunFunc) (Replicated, er
 	wg.Wait()
 
 	out.Seeds = seeds
-	out.ErrorBars = ErrorBars{Level: level, Assumes: replicationAssumes}
+	out.ErrorBars = ErrorBars{Level: level, Assumes: replicationAssumes, Method: MethodReplications}
 	for i := range R {
 		if errs[i] != nil {
 			out.ErrorBars.Why = "a run failed"
@@ -274,7 +274,7 @@ func checkRunResult(r *Result, d int) error {
 func meanErrorBars(xs [][]float64, level float64) ErrorBars {
 	R, d := len(xs), len(xs[0])
 	e := ErrorBars{
-		Available: true, Level: level, DF: R - 1, Count: R, Assumes: replicationAssumes,
+		Available: true, Level: level, DF: R - 1, Count: R, Assumes: replicationAssumes, Method: MethodReplications,
 		Center: make([]float64, d), StdErr: make([]float64, d), HalfWidth: make([]float64, d),
 	}
 	for _, x := range xs {

@@ -31,9 +31,11 @@ type Result struct {
 	// Projected is the number of steps in which the projection moved the
 	// iterate.
 	Projected int
-	// ErrorBars are the batch-means standard errors, covariance and
-	// confidence intervals of Average (see Inference). Check Available (or
-	// Err) before use: they need Inference.MinBatches complete batches.
+	// ErrorBars are the standard errors, covariance and confidence
+	// intervals of Average (random scaling by default; see Inference).
+	// Check Available (or Err) before use: they are withheld, with the
+	// reason in Why, until there are data enough and the run has settled,
+	// and refused where no interval can hold.
 	ErrorBars ErrorBars
 	// Trace is the record of the run when Settings.Trace asked for one,
 	// and nil otherwise.

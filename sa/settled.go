@@ -121,6 +121,18 @@ func (b *batchMeans) refusal() (why string, unsettled bool) {
 	return "", false
 }
 
+// settled reports whether refusal would return "" (without building the
+// message; it allocates nothing).
+func (b *batchMeans) settled() bool {
+	if b.j > 0 && float64(b.projected) > MaxProjectedShare*float64(b.j) {
+		return false
+	}
+	if tau := b.memory(); math.IsInf(tau, 1) || (tau > 0 && float64(b.j) < SettledMemories*tau) {
+		return false
+	}
+	return !b.trend.unsettled
+}
+
 // trendTime is the time axis t_m of the settledness check: the log of the
 // batch midpoint (measured false-alarm rates with log, square-root and
 // linear time on the least-squares problem were alike: 2, 1 and 2 of 400

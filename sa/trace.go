@@ -202,9 +202,7 @@ func (t *Trace) fill(row []float64, c *core, a, ynorm float64) {
 			avg[i] = math.NaN()
 		}
 	}
-	if c.inf != nil && c.inf.available() {
-		c.inf.halfWidths(half, c.nAvg)
-	} else {
+	if c.inf == nil || !c.inf.traceHalfWidths(half, c.avg, c.nAvg) {
 		for i := range half {
 			half[i] = math.NaN()
 		}

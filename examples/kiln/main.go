@@ -60,7 +60,8 @@ func main() {
 			log.Fatal(err)
 		}
 		est := res.Average[0]
-		// Batch-means error bars of the average, once enough batches exist.
+		// Error bars of the average (random scaling, the default), once the
+		// run has settled: the averaged firings must span 15 noise memories.
 		ci := "not yet"
 		if eb := res.ErrorBars; eb.Available {
 			ci = fmt.Sprintf("± %.2f", eb.HalfWidth[0])
