@@ -187,10 +187,10 @@ func (b *tunerBars) bars(avg []float64, n int) ErrorBars {
 // Measured coverage decides where they are offered (TestTunerErrorBarsCoverage,
 // 100 000 reports, 400 replications with bars, nominal 95%, band
 // [0.92, 0.98]): a SetpointTuner on a linear level with normal noise and
-// the gain 0.5/(k+1)^0.7 covered 0.927, so Tuner and SetpointTuner with a
+// the gain 1.5/(k+1)^0.7 covered 0.930, so Tuner and SetpointTuner with a
 // hand-set decreasing gain report them; the same with the learned gain
-// covered 0.917 and a QuantileTuner (median of an exponential law) 0.905
-// with a hand-set and 0.907 with the learned gain, so a learned gain and
+// covered 0.915 and a QuantileTuner (median of an exponential law) 0.915
+// with a hand-set and 0.912 with the learned gain, so a learned gain and
 // a QuantileTuner refuse them, with the reason. The error of the average
 // itself matched its asymptotic standard error in those checks: it is the
 // interval that is slightly too short, so treat 95% bars of a tuner as
