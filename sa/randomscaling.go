@@ -61,6 +61,22 @@ const (
 	MethodReplications
 )
 
+// String names the method in plain words ("random scaling", "batch
+// means", "replications", "automatic"), for printing beside an interval.
+func (m Method) String() string {
+	switch m {
+	case MethodAuto:
+		return "automatic"
+	case MethodRandomScaling:
+		return "random scaling"
+	case MethodBatchMeans:
+		return "batch means"
+	case MethodReplications:
+		return "replications"
+	}
+	return fmt.Sprintf("Method(%d)", int(m))
+}
+
 // RandomScalingMinSteps is the number of averaged iterates before
 // random-scaling error bars are reported.
 const RandomScalingMinSteps = 1000

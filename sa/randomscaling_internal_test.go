@@ -176,3 +176,15 @@ func exactV(avgs [][]float64, i, k int) float64 {
 	}
 	return sum / float64(n) / float64(n)
 }
+
+// TestMethodString checks the printed names of the error-bar methods.
+func TestMethodString(t *testing.T) {
+	for m, want := range map[Method]string{
+		MethodAuto: "automatic", MethodRandomScaling: "random scaling",
+		MethodBatchMeans: "batch means", MethodReplications: "replications", Method(9): "Method(9)",
+	} {
+		if got := m.String(); got != want {
+			t.Errorf("Method(%d).String() = %q, want %q", int(m), got, want)
+		}
+	}
+}

@@ -103,9 +103,10 @@ type Settings struct {
 	// iterates.
 	MaxAbs float64
 
-	// Inference configures the batch-means error bars of the average,
-	// reported in Result.ErrorBars. The zero value gives 95% intervals;
-	// CovarianceOff switches them off.
+	// Inference configures the error bars of the average (random scaling
+	// by default, batch means selectable; see Inference), reported in
+	// Result.ErrorBars. The zero value gives 95% intervals; CovarianceOff
+	// switches them off.
 	Inference Inference
 
 	// Precision, if not nil, stops the run with Reason Precise once every

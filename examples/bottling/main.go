@@ -11,7 +11,7 @@
 // and every weighed bottle adds ±4 ml of foam and scale noise. Robbins–Monro
 // moves the open times t by the fill errors of the bottles just weighed
 // (Y = fill − target, in ml), the Polyak–Ruppert average is the answer, and
-// batch means give its error bars; the run stops once both intervals are
+// random scaling gives its error bars; the run stops once both intervals are
 // within ±0.3 ms. Twenty independent runs then give a second, independent
 // interval. A trace of the first run is written as CSV and two PNG plots.
 //
@@ -102,8 +102,8 @@ func main() {
 		log.Fatal(err)
 	}
 	for i, name := range []string{"500 ml nozzle", "330 ml nozzle"} {
-		fmt.Printf("  %s: open %.5f s ± %.5f s (95%%, %d batches)   truth %.5f s, error %+.5f s\n",
-			name, r.Average[i], e.HalfWidth[i], e.Count, want[i], r.Average[i]-want[i])
+		fmt.Printf("  %s: open %.5f s ± %.5f s (95%%, %s)   truth %.5f s, error %+.5f s\n",
+			name, r.Average[i], e.HalfWidth[i], e.Method, want[i], r.Average[i]-want[i])
 	}
 	if e.Covariance != nil {
 		c := e.Covariance
