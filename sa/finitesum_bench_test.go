@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"runtime"
 	"sync"
 	"testing"
 	"time"
@@ -68,7 +69,10 @@ const sgdBenchSteps = 1 << 14
 // averaging from the first step) with hand-written loops over the same
 // data, the same index stream and the same gain. One op is one run of
 // sgdBenchSteps steps of each of four paths, timed one after the other in
-// an order that rotates from op to op:
+// an order that rotates from op to op, each by the processor time of the
+// benchmark's thread (threadTime: on Linux the time it ran on a core, not
+// the time it waited for one, which on the shared 2-core test machine
+// swamps wall-clock ratios):
 //
 //   - "off": MinimizeSum with Inference{Covariance: CovarianceOff};
 //   - "on": MinimizeSum with the default inference (batch-means error bars,
@@ -145,13 +149,15 @@ func BenchmarkSGDStep(b *testing.B) {
 			allocs := testing.AllocsPerRun(2, paths[0]) + testing.AllocsPerRun(2, paths[1])
 			var t [4]time.Duration
 			op := 0
+			runtime.LockOSThread()
+			defer runtime.UnlockOSThread()
 			b.ReportAllocs()
 			for b.Loop() {
 				for j := range paths {
 					p := (op + j) % len(paths)
-					t0 := time.Now()
+					t0 := threadTime()
 					paths[p]()
-					t[p] += time.Since(t0)
+					t[p] += threadTime() - t0
 				}
 				op++
 			}
