@@ -6,9 +6,6 @@ import "time"
 
 var clockStart = time.Now()
 
-// threadTime falls back to wall time where getrusage(RUSAGE_THREAD) is
-// not available.
+// threadTime falls back to wall time where the thread's processor-time
+// clock (clock_gettime(CLOCK_THREAD_CPUTIME_ID)) is not used.
 func threadTime() time.Duration { return time.Since(clockStart) }
-
-// threadClock names what threadTime measures, for benchmark output.
-const threadClock = "wall time"
