@@ -471,6 +471,11 @@ func (b *MiniBatch) Measure(dst, x []float64, rng *rand.Rand) error {
 		return fmt.Errorf("%w: two Measure calls overlap; give each run its own MiniBatch", ErrBusy)
 	}
 	defer b.inUse.Store(false)
+	return b.measure(dst, x, rng)
+}
+
+// measure is Measure without the check for overlapping calls.
+func (b *MiniBatch) measure(dst, x []float64, rng *rand.Rand) error {
 	sh := b.sh
 	sh.x, sh.w, sh.idx = x, 1/float64(b.size), nil
 	if b.s != nil {
@@ -541,21 +546,25 @@ type RankOne struct {
 // its bookkeeping in one pass over x. Otherwise it writes Y into dst as
 // Measure does and returns ok false. The rank-one form costs one pass over
 // the sample's row (its margin) instead of the three of Measure (clearing
-// dst, the margin, adding into dst). Its errors and panics are those of
-// Measure (ErrBusy, *PanicError, a length mismatch); dst is then
+// dst, the margin, adding into dst).
+//
+// MeasureRankOne is for a driver loop that holds b ([MiniBatch.Hold]) on
+// its own goroutine; it returns an error wrapping ErrBusy if b is not
+// held, and does not itself detect overlapping calls (Hold does, once per
+// run instead of twice per measurement). Its other errors and panics are
+// those of Measure (*PanicError, a length mismatch); dst is then
 // unspecified.
 func (b *MiniBatch) MeasureRankOne(dst, x []float64, rng *rand.Rand) (g RankOne, ok bool, err error) {
+	if !b.inUse.Load() {
+		return g, false, fmt.Errorf("%w: MeasureRankOne on a MiniBatch that is not held (MiniBatch.Hold)", ErrBusy)
+	}
 	rf := b.sh.rf
 	if b.size != 1 || rf == nil || b.s == nil {
-		return g, false, b.Measure(dst, x, rng)
+		return g, false, b.measure(dst, x, rng)
 	}
 	if len(dst) != b.d || len(x) != b.d {
 		panic("oracle: MiniBatch length mismatch")
 	}
-	if !b.inUse.CompareAndSwap(false, true) {
-		return g, false, fmt.Errorf("%w: two Measure calls overlap; give each run its own MiniBatch", ErrBusy)
-	}
-	defer b.inUse.Store(false)
 	b.s.Fill(b.idx, rng)
 	b.evals++
 	if i := b.idx[0]; i >= 0 && i < b.n {
@@ -570,6 +579,21 @@ func (b *MiniBatch) MeasureRankOne(dst, x []float64, rng *rand.Rand) (g RankOne,
 	sh.x, sh.idx = nil, nil
 	return g, false, sh.firstPanic()
 }
+
+// Hold marks b as in use, as a Measure call does for its duration, until
+// [MiniBatch.Unhold]: meanwhile Measure and a second Hold fail with an
+// error wrapping ErrBusy, and the holder takes its measurements with
+// [MiniBatch.MeasureRankOne]. sa.MinimizeSum holds its oracle for the
+// steps of a run this way.
+func (b *MiniBatch) Hold() error {
+	if !b.inUse.CompareAndSwap(false, true) {
+		return fmt.Errorf("%w: Hold while a Measure is under way or b is held", ErrBusy)
+	}
+	return nil
+}
+
+// Unhold ends a [MiniBatch.Hold].
+func (b *MiniBatch) Unhold() { b.inUse.Store(false) }
 
 // Claim marks b as held by one run until [MiniBatch.Release], so that a
 // second run started on the same MiniBatch fails at once with an error

@@ -96,6 +96,9 @@ func TestMeasureRankOneMatchesMeasure(t *testing.T) {
 					return g
 				}
 				gm, gr := mk(), mk()
+				if err := gr.Hold(); err != nil {
+					t.Fatal(err)
+				}
 				rm, rr := rand.New(rand.NewPCG(9, 9)), rand.New(rand.NewPCG(9, 9))
 				dim := f.Dim()
 				xs := make([]float64, dim)
@@ -127,6 +130,7 @@ func TestMeasureRankOneMatchesMeasure(t *testing.T) {
 						t.Fatalf("d=%d model %d size %d %T, call %d: Y = %v, Measure gives %v", d, mi, c.size, c.f, k, got, want)
 					}
 				}
+				gr.Unhold()
 				if gm.Evaluations() != gr.Evaluations() {
 					t.Errorf("d=%d: %d evaluations, Measure counted %d", d, gr.Evaluations(), gm.Evaluations())
 				}
@@ -147,7 +151,8 @@ func (s badSampler) Len() int   { return s.n }
 func (s badSampler) Epoch() int { return 0 }
 func (s badSampler) Reset()     {}
 
-// TestMeasureRankOneBadInput: an index out of range from a faulty sampler
+// TestMeasureRankOneBadInput: MeasureRankOne needs Hold, which excludes
+// Measure and a second Hold; an index out of range from a faulty sampler
 // is returned as the *PanicError that Measure returns, and a length
 // mismatch panics as in Measure.
 func TestMeasureRankOneBadInput(t *testing.T) {
@@ -160,7 +165,20 @@ func TestMeasureRankOneBadInput(t *testing.T) {
 		t.Fatal(err)
 	}
 	dst, x := make([]float64, 3), make([]float64, 3)
+	if _, _, err := g.MeasureRankOne(dst, x, rand.New(rand.NewPCG(1, 1))); !errors.Is(err, oracle.ErrBusy) {
+		t.Errorf("MeasureRankOne without Hold: %v, want ErrBusy", err)
+	}
+	if err := g.Hold(); err != nil {
+		t.Fatal(err)
+	}
+	if err := g.Hold(); !errors.Is(err, oracle.ErrBusy) {
+		t.Errorf("second Hold: %v, want ErrBusy", err)
+	}
+	if err := g.Measure(dst, x, rand.New(rand.NewPCG(1, 1))); !errors.Is(err, oracle.ErrBusy) {
+		t.Errorf("Measure while held: %v, want ErrBusy", err)
+	}
 	_, ok, err := g.MeasureRankOne(dst, x, rand.New(rand.NewPCG(1, 1)))
+	g.Unhold()
 	var pe *oracle.PanicError
 	if ok || !errors.As(err, &pe) {
 		t.Fatalf("out-of-range index: ok %v, err %v; want a *PanicError", ok, err)
@@ -168,6 +186,9 @@ func TestMeasureRankOneBadInput(t *testing.T) {
 	merr := g.Measure(dst, x, rand.New(rand.NewPCG(1, 1)))
 	if merr == nil || merr.Error() != err.Error() {
 		t.Errorf("MeasureRankOne: %v; Measure: %v", err, merr)
+	}
+	if err := g.Hold(); err != nil {
+		t.Fatal(err)
 	}
 	defer func() {
 		if recover() == nil {

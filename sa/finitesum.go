@@ -137,6 +137,12 @@ func runSum(ctx context.Context, c *core, g *oracle.MiniBatch, y []float64, rng 
 	perCall := g.MeasurementsPerCall()
 	maxSteps, maxMeas := r.Settings.MaxSteps, r.Settings.MaxMeasurements
 	c.configure(r.Settings, perCall)
+	held := false
+	defer func() {
+		if held {
+			g.Unhold()
+		}
+	}()
 	maxEpochMeas := lim.epochMeasurements
 	done := ctx.Done()
 	for {
@@ -160,7 +166,17 @@ func runSum(ctx context.Context, c *core, g *oracle.MiniBatch, y []float64, rng 
 			default:
 			}
 		}
-		merr, serr := c.descend(g, y, rng)
+		var merr, serr error
+		if !held {
+			// Held from the first measurement to the end of the run:
+			// another goroutine's Measure meanwhile fails with ErrBusy,
+			// and this one's fails the same way if it came first.
+			merr = g.Hold()
+			held = merr == nil
+		}
+		if held {
+			merr, serr = c.descend(g, y, rng)
+		}
 		r.Measurements += perCall
 		if merr != nil {
 			if ctx.Err() != nil {
