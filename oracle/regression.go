@@ -514,6 +514,19 @@ func (r *Regression) rowSlope(row, beta []float64, b0 float64, i int, w float64)
 func (r *Regression) rankOne(x []float64, i int, w float64) RankOne {
 	p, off := r.p, r.off
 	row := r.a[i*p : (i+1)*p : (i+1)*p]
+	if p > 8 {
+		// As in addIndexed: touch every cache line of the row with loads
+		// that do not depend on each other, so that a row not in cache
+		// arrives in parallel rather than line by line behind the dot
+		// product.
+		var t float64
+		for j := 0; j < len(row); j += 8 {
+			t += row[j]
+		}
+		if t != t { // never: the data are finite; keeps the loads live
+			panic("oracle: Regression data not finite")
+		}
+	}
 	b0 := 0.0
 	if off == 1 {
 		b0 = x[0]

@@ -53,6 +53,14 @@ const streamSample uint64 = 0x5eed_0301
 // and never modified. g is held for the whole run (oracle.MiniBatch.Claim):
 // a second run started on the same g meanwhile fails at once with an error
 // wrapping oracle.ErrBusy. Give each concurrent run its own MiniBatch.
+//
+// Without a projection, MaxAbs, trace or adaptive gain, the steps take
+// their measurements with oracle.MiniBatch.MeasureRankOne, holding g
+// (oracle.MiniBatch.Hold) from the first to the last, so that a Measure
+// on g from another goroutine meanwhile fails with ErrBusy; an SGD step
+// (a batch of one sample of an *oracle.Regression) then applies the
+// gradient without writing it out. The Result is the same bit for bit as
+// with separate measurements and updates.
 func MinimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Settings) (Result, error) {
 	return minimizeSum(ctx, g, x0, s, true)
 }
