@@ -213,10 +213,10 @@ func (c *core) descend(g *oracle.MiniBatch, y []float64, rng *rand.Rand) (merr, 
 	}
 	a := c.gainOf(c.gainIdx)
 	if !(a >= 0) || math.IsInf(a, 1) {
-		expandRankOne(y, c.x, ro)
+		expandRankOne(y, c.x, &ro)
 		return nil, c.step(y) // which reports the gain
 	}
-	return nil, c.stepRankOne(ro, a, y)
+	return nil, c.stepRankOne(&ro, a, y)
 }
 
 // stepRankOne is step for a fusable core with the measurement Y in
@@ -227,7 +227,7 @@ func (c *core) descend(g *oracle.MiniBatch, y []float64, rng *rand.Rand) (merr, 
 // that a failed step leaves the average as it was). With inference on, the
 // average and the batch sums follow in commit's loop. y is scratch: it
 // receives Y only when the step fails, to say why.
-func (c *core) stepRankOne(g oracle.RankOne, a float64, y []float64) error {
+func (c *core) stepRankOne(g *oracle.RankOne, a float64, y []float64) error {
 	x := c.x
 	d := len(x)
 	if d >= vectorKernelMin {
@@ -262,7 +262,7 @@ func (c *core) stepRankOne(g oracle.RankOne, a float64, y []float64) error {
 // oracle.RankOne states, and, when avg is not nil, avgNext = avg +
 // (next − avg)·w (the averaging of commit). It reports whether every entry
 // of next is finite.
-func rankOneUpdate(next, x []float64, g oracle.RankOne, a float64, avgNext, avg []float64, w float64) bool {
+func rankOneUpdate(next, x []float64, g *oracle.RankOne, a float64, avgNext, avg []float64, w float64) bool {
 	s, row, pen := g.Scale, g.Row, g.Penalty
 	bad := false
 	off := 0
@@ -325,7 +325,7 @@ func rankOneUpdate(next, x []float64, g oracle.RankOne, a float64, avgNext, avg 
 // expandRankOne writes the measurement Y of g at x into y (see
 // oracle.RankOne), as Measure writes it: into zeros, the row scaled by
 // gonum's axpy kernel, then the penalty.
-func expandRankOne(y, x []float64, g oracle.RankOne) {
+func expandRankOne(y, x []float64, g *oracle.RankOne) {
 	clear(y)
 	off := 0
 	if g.Intercept {
