@@ -216,26 +216,23 @@ func (c *core) descend(g *oracle.MiniBatch, y []float64, rng *rand.Rand) (merr, 
 		expandRankOne(y, c.x, &ro)
 		return nil, c.step(y) // which reports the gain
 	}
+	if len(y) >= vectorKernelMin {
+		return nil, c.stepRankOneLong(&ro, a, y)
+	}
 	return nil, c.stepRankOne(&ro, a, y)
 }
 
 // stepRankOne is step for a fusable core with the measurement Y in
-// factored form g (see oracle.RankOne) and a valid gain a: one pass over x
-// writes next = x − a·Y, rounded as step rounds it, checks it for
-// finiteness and, when inference is off and the iterate is averaged, also
-// writes the new average into the spare buffer (committed by swapping, so
-// that a failed step leaves the average as it was). With inference on, the
-// average and the batch sums follow in commit's loop. y is scratch: it
-// receives Y only when the step fails, to say why.
+// factored form g (see oracle.RankOne) and a valid gain a, below
+// vectorKernelMin coordinates: the same operations in the same order, in
+// one pass over x that writes next = x − a·Y, checks it for finiteness
+// and, when inference is off and the iterate is averaged, also writes the
+// new average into the spare buffer (committed by swapping, so that a
+// failed step leaves the average as it was). y is scratch: it receives Y
+// only when the step fails, to say why.
 func (c *core) stepRankOne(g *oracle.RankOne, a float64, y []float64) error {
 	x := c.x
 	d := len(x)
-	if d >= vectorKernelMin {
-		// Long vectors: gonum's kernels, which process two values per
-		// instruction, beat one fused Go pass (which processes one).
-		expandRankOne(y, x, g)
-		return c.step(y)
-	}
 	next := c.next[:d]
 	fuseAvg := c.inf == nil && c.steps+1 > c.burnIn
 	var avg, avgNext []float64
@@ -252,9 +249,43 @@ func (c *core) stepRankOne(g *oracle.RankOne, a float64, y []float64) error {
 	}
 	if fuseAvg {
 		c.avg, c.avgNext = avgNext, avg
+		c.nAvg++ // counted here, not by advance
 	}
-	c.commitAveraged(next, a, fuseAvg)
+	c.advance(next, x, a, fuseAvg)
 	return nil
+}
+
+// stepRankOneLong is stepRankOne from vectorKernelMin coordinates: Y is
+// written out into y and applied by gonum's kernels, which process two
+// values per instruction, with the operations of step.
+func (c *core) stepRankOneLong(g *oracle.RankOne, a float64, y []float64) error {
+	x := c.x
+	next := c.next[:len(x)]
+	expandRankOne(y, x, g)
+	floats.AddScaledTo(next, x, -a, y)
+	if s := floats.Sum(next); s-s != 0 {
+		if err := c.notFinite(y, next, a); err != nil {
+			return err
+		}
+	}
+	c.advance(next, x, a, false)
+	return nil
+}
+
+// advance is commit for the rank-one steps, whose core has no projection,
+// step limit, adaptive gain or trace (TestFusedMatchesPull checks that the
+// two leave the core alike): next becomes the iterate (x was the previous
+// one) and, unless averaged says the caller has already done so, it is
+// added to the average.
+func (c *core) advance(next, x []float64, a float64, averaged bool) {
+	c.x, c.next = next, x
+	c.active, c.limited = false, false
+	c.lastGain = a
+	c.gainIdx++
+	c.steps++
+	if !averaged && c.steps > c.burnIn {
+		c.average(next, x, a, false)
+	}
 }
 
 // rankOneUpdate writes next = x − a·Y for Y in factored form g, each
@@ -343,19 +374,6 @@ func expandRankOne(y, x []float64, g *oracle.RankOne) {
 // trace; y is the measurement (read only for an adaptive gain and the
 // trace). It cannot fail.
 func (c *core) commit(next []float64, a float64, y []float64, active, limited, advance bool) {
-	c.commitWith(next, a, y, active, limited, advance, false)
-}
-
-// commitAveraged is commit for stepRankOne: no projection, step limit,
-// adaptive gain or trace; averaged reports that the average is already
-// updated (and swapped in).
-func (c *core) commitAveraged(next []float64, a float64, averaged bool) {
-	c.commitWith(next, a, nil, false, false, true, averaged)
-}
-
-// commitWith is commit; averaged reports that the caller has already
-// updated the average for this step (inference off only).
-func (c *core) commitWith(next []float64, a float64, y []float64, active, limited, advance, averaged bool) {
 	x := c.x
 	c.x, c.next = next, x
 	switch {
@@ -378,61 +396,67 @@ func (c *core) commitWith(next []float64, a float64, y []float64, active, limite
 		c.hasPrev = true
 	}
 	c.steps++
-	if averaged {
-		c.nAvg++
-	} else if c.steps > c.burnIn {
-		c.nAvg++
-		w := 1 / float64(c.nAvg)
-		avg := c.avg[:len(next)]
-		if b := c.inf; b != nil {
-			// The batch sums and the slope sums of the noise memory
-			// (batchMeans.noteSlope) ride in the averaging loop: one pass.
-			b.gain = a
-			sum, ref, sq := b.sum[:len(next)], b.ref[:len(next)], b.sq[:len(next)]
-			if a > 0 {
-				inv := 1 / a
-				s0, s1, prev := b.s0[:len(next)], b.s1[:len(next)], x[:len(next)]
-				for i, v := range next {
-					avg[i] += (v - avg[i]) * w
-					y := (v - prev[i]) * inv
-					s0[i] += y
-					s1[i] += y * (prev[i] - ref[i])
-					dv := v - ref[i]
-					sum[i] += dv
-					sq[i] += dv * dv
-				}
-			} else {
-				for i, v := range next {
-					avg[i] += (v - avg[i]) * w
-					dv := v - ref[i]
-					sum[i] += dv
-					sq[i] += dv * dv
-				}
-			}
-			if active {
-				b.projected++
-			}
-			b.tick(avg)
-			if c.rs != nil {
-				c.rs.add(avg)
-			}
-		} else if len(next) >= vectorKernelMin {
-			// avg + (next − avg)·w by gonum's kernels, the same
-			// operations: next + (−1)·avg = next − avg exactly, and
-			// avg + w·t = avg + t·w.
-			t := c.avgNext[:len(next)]
-			floats.AddScaledTo(t, next, -1, avg)
-			floats.AddScaled(avg, w, t)
-		} else {
-			for i, v := range next {
-				avg[i] += (v - avg[i]) * w
-			}
-		}
+	if c.steps > c.burnIn {
+		c.average(next, x, a, active)
 	}
 	if c.trace != nil {
 		c.lastNorm = floats.Norm(y, 2)
 		if c.trace.due(c.steps) {
 			c.trace.record(c)
+		}
+	}
+}
+
+// average adds the new iterate next (x is the previous one, a the gain of
+// the step, active whether the projection put next where it is) to the
+// Polyak–Ruppert average and, with inference on, to the batch sums of the
+// error bars.
+func (c *core) average(next, x []float64, a float64, active bool) {
+	c.nAvg++
+	w := 1 / float64(c.nAvg)
+	avg := c.avg[:len(next)]
+	if b := c.inf; b != nil {
+		// The batch sums and the slope sums of the noise memory
+		// (batchMeans.noteSlope) ride in the averaging loop: one pass.
+		b.gain = a
+		sum, ref, sq := b.sum[:len(next)], b.ref[:len(next)], b.sq[:len(next)]
+		if a > 0 {
+			inv := 1 / a
+			s0, s1, prev := b.s0[:len(next)], b.s1[:len(next)], x[:len(next)]
+			for i, v := range next {
+				avg[i] += (v - avg[i]) * w
+				y := (v - prev[i]) * inv
+				s0[i] += y
+				s1[i] += y * (prev[i] - ref[i])
+				dv := v - ref[i]
+				sum[i] += dv
+				sq[i] += dv * dv
+			}
+		} else {
+			for i, v := range next {
+				avg[i] += (v - avg[i]) * w
+				dv := v - ref[i]
+				sum[i] += dv
+				sq[i] += dv * dv
+			}
+		}
+		if active {
+			b.projected++
+		}
+		b.tick(avg)
+		if c.rs != nil {
+			c.rs.add(avg)
+		}
+	} else if len(next) >= vectorKernelMin {
+		// avg + (next − avg)·w by gonum's kernels, the same
+		// operations: next + (−1)·avg = next − avg exactly, and
+		// avg + w·t = avg + t·w.
+		t := c.avgNext[:len(next)]
+		floats.AddScaledTo(t, next, -1, avg)
+		floats.AddScaled(avg, w, t)
+	} else {
+		for i, v := range next {
+			avg[i] += (v - avg[i]) * w
 		}
 	}
 }
