@@ -523,6 +523,7 @@ func (r *Regression) rankOne(x []float64, i int, w float64) RankOne {
 		for j := 0; j < len(row); j += 8 {
 			t += row[j]
 		}
+		t += row[len(row)-1] + r.y[i]
 		if t != t { // never: the data are finite; keeps the loads live
 			panic("oracle: Regression data not finite")
 		}
