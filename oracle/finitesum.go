@@ -471,6 +471,11 @@ func (b *MiniBatch) Measure(dst, x []float64, rng *rand.Rand) error {
 		return fmt.Errorf("%w: two Measure calls overlap; give each run its own MiniBatch", ErrBusy)
 	}
 	defer b.inUse.Store(false)
+	return b.measure(dst, x, rng)
+}
+
+// measure is Measure without the check for overlapping calls.
+func (b *MiniBatch) measure(dst, x []float64, rng *rand.Rand) error {
 	sh := b.sh
 	sh.x, sh.w, sh.idx = x, 1/float64(b.size), nil
 	if b.s != nil {
@@ -513,6 +518,82 @@ func (b *MiniBatch) Measure(dst, x []float64, rng *rand.Rand) error {
 	sh.x, sh.idx = nil, nil
 	return sh.firstPanic()
 }
+
+// RankOne is the gradient of one sample of a linear model in factored
+// form, as [MiniBatch.MeasureRankOne] returns it: with o = 1 when
+// Intercept is set and 0 otherwise, the measurement Y that Measure writes
+// into a dst of length len(Row)+o is, with every operation rounded in
+// this order,
+//
+//	Y_0     = 0 + Scale                                  (if Intercept)
+//	Y_{o+j} = (0 + Scale·Row[j]) + Penalty·x_{o+j}       (j < len(Row))
+//
+// where the penalty term is left out when Penalty is 0 and the "0 +"
+// (Measure adds into a cleared dst) turns a −0 into +0. Row aliases the
+// model's data: read it, never write to it.
+type RankOne struct {
+	Scale     float64   // w·ℓ'(z_i): the sample's loss slope times the batch weight
+	Row       []float64 // the sample's features a_i
+	Intercept bool      // Y_0 is the intercept's component
+	Penalty   float64   // w·L2, the weight of the ridge term
+}
+
+// MeasureRankOne takes the measurement of Measure at x, drawing the batch
+// from the sampler with rng exactly as Measure does. When b's batch is one
+// sample of a *[Regression] (the batch of SGD) it does not write the
+// gradient out: it returns it in factored form (see [RankOne]), the same
+// Y bit for bit, with ok true, so that a driver can apply the update and
+// its bookkeeping in one pass over x. Otherwise it writes Y into dst as
+// Measure does and returns ok false. The rank-one form costs one pass over
+// the sample's row (its margin) instead of the three of Measure (clearing
+// dst, the margin, adding into dst).
+//
+// MeasureRankOne is for a driver loop that holds b ([MiniBatch.Hold]) on
+// its own goroutine; it returns an error wrapping ErrBusy if b is not
+// held, and does not itself detect overlapping calls (Hold does, once per
+// run instead of twice per measurement). Its other errors and panics are
+// those of Measure (*PanicError, a length mismatch); dst is then
+// unspecified.
+func (b *MiniBatch) MeasureRankOne(dst, x []float64, rng *rand.Rand) (g RankOne, ok bool, err error) {
+	if !b.inUse.Load() {
+		return g, false, fmt.Errorf("%w: MeasureRankOne on a MiniBatch that is not held (MiniBatch.Hold)", ErrBusy)
+	}
+	rf := b.sh.rf
+	if b.size != 1 || rf == nil || b.s == nil {
+		return g, false, b.measure(dst, x, rng)
+	}
+	if len(dst) != b.d || len(x) != b.d {
+		panic("oracle: MiniBatch length mismatch")
+	}
+	b.s.Fill(b.idx, rng)
+	b.evals++
+	if i := b.idx[0]; i >= 0 && i < b.n {
+		return rf.rankOne(x, i, 1), true, nil
+	}
+	// An index out of range from a faulty sampler: the general path
+	// panics on it and returns the *PanicError, as Measure does.
+	sh := b.sh
+	sh.x, sh.w, sh.idx = x, 1, b.idx
+	clear(dst)
+	sh.safeAccumulate(dst, 0, 0, 1)
+	sh.x, sh.idx = nil, nil
+	return g, false, sh.firstPanic()
+}
+
+// Hold marks b as in use, as a Measure call does for its duration, until
+// [MiniBatch.Unhold]: meanwhile Measure and a second Hold fail with an
+// error wrapping ErrBusy, and the holder takes its measurements with
+// [MiniBatch.MeasureRankOne]. sa.MinimizeSum holds its oracle for the
+// steps of a run this way.
+func (b *MiniBatch) Hold() error {
+	if !b.inUse.CompareAndSwap(false, true) {
+		return fmt.Errorf("%w: Hold while a Measure is under way or b is held", ErrBusy)
+	}
+	return nil
+}
+
+// Unhold ends a [MiniBatch.Hold].
+func (b *MiniBatch) Unhold() { b.inUse.Store(false) }
 
 // Claim marks b as held by one run until [MiniBatch.Release], so that a
 // second run started on the same MiniBatch fails at once with an error

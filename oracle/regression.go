@@ -462,28 +462,7 @@ func (r *Regression) addIndexed(dst, x []float64, idx []int, w float64) {
 	var sum float64
 	for _, i := range idx {
 		row := r.a[i*p : (i+1)*p]
-		var z float64
-		if p < fusedDotMin {
-			bt := beta[:len(row)]
-			var s0, s1 float64
-			j := 0
-			for ; j+2 <= len(row); j += 2 {
-				s0 += row[j] * bt[j]
-				s1 += row[j+1] * bt[j+1]
-			}
-			if j < len(row) {
-				s0 += row[j] * bt[j]
-			}
-			z = s0 + s1 + b0
-		} else {
-			z = floats.Dot(row, beta) + b0
-		}
-		var v float64
-		if r.loss == SquaredLoss {
-			v = w * (z - r.y[i])
-		} else {
-			v = w * r.dLoss(z, i)
-		}
+		v := r.rowSlope(row, beta, b0, i, w)
 		sum += v
 		if p < fusedDotMin {
 			gg := g[:len(row)]
@@ -499,6 +478,65 @@ func (r *Regression) addIndexed(dst, x []float64, idx []int, w float64) {
 	}
 	if r.l2 != 0 {
 		floats.AddScaled(g, float64(len(idx))*w*r.l2, beta)
+	}
+}
+
+// rowSlope returns w·ℓ'(z_i) for the margin z_i = b0 + row·beta of sample
+// i (row is its features, beta the coefficients): the per-sample factor
+// of addIndexed, which rankOne shares so that both round alike. Narrow
+// rows are summed in two interleaved halves, wider ones by gonum's dot
+// kernel.
+func (r *Regression) rowSlope(row, beta []float64, b0 float64, i int, w float64) float64 {
+	var z float64
+	if len(row) < fusedDotMin {
+		bt := beta[:len(row)]
+		var s0, s1 float64
+		j := 0
+		for ; j+2 <= len(row); j += 2 {
+			s0 += row[j] * bt[j]
+			s1 += row[j+1] * bt[j+1]
+		}
+		if j < len(row) {
+			s0 += row[j] * bt[j]
+		}
+		z = s0 + s1 + b0
+	} else {
+		z = floats.Dot(row, beta) + b0
+	}
+	if r.loss == SquaredLoss {
+		return w * (z - r.y[i])
+	}
+	return w * r.dLoss(z, i)
+}
+
+// rankOne returns the gradient w·∇f_i(x) of sample i in factored form
+// (see RankOne). The caller checks i and the length of x.
+func (r *Regression) rankOne(x []float64, i int, w float64) RankOne {
+	p, off := r.p, r.off
+	row := r.a[i*p : (i+1)*p : (i+1)*p]
+	if p > 8 {
+		// As in addIndexed: touch every cache line of the row with loads
+		// that do not depend on each other, so that a row not in cache
+		// arrives in parallel rather than line by line behind the dot
+		// product.
+		var t float64
+		for j := 0; j < len(row); j += 8 {
+			t += row[j]
+		}
+		t += row[len(row)-1] + r.y[i]
+		if t != t { // never: the data are finite; keeps the loads live
+			panic("oracle: Regression data not finite")
+		}
+	}
+	b0 := 0.0
+	if off == 1 {
+		b0 = x[0]
+	}
+	return RankOne{
+		Scale:     r.rowSlope(row, x[off:], b0, i, w),
+		Row:       row,
+		Intercept: off == 1,
+		Penalty:   float64(1) * w * r.l2, // as addIndexed rounds it for one index
 	}
 }
 

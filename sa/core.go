@@ -26,6 +26,7 @@ import (
 type core struct {
 	x, next []float64 // current iterate and scratch for the next one
 	avg     []float64 // running mean of the averaged iterates
+	avgNext []float64 // scratch: the next avg (stepRankOne swaps them), or next − avg
 	nAvg    int       // number of iterates in avg
 	burnIn  int       // iterates x_1..x_burnIn are not averaged
 
@@ -82,9 +83,9 @@ const vectorKernelMin = 64
 // validated.
 func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, maxAbs float64) *core {
 	d := len(x0)
-	buf := make([]float64, 4*d)
+	buf := make([]float64, 5*d)
 	c := &core{
-		x: buf[:d:d], next: buf[d : 2*d : 2*d], avg: buf[2*d : 3*d : 3*d], saved: buf[3*d:],
+		x: buf[:d:d], next: buf[d : 2*d : 2*d], avg: buf[2*d : 3*d : 3*d], saved: buf[3*d : 4*d : 4*d], avgNext: buf[4*d:],
 		burnIn: burnIn, gain: gain, proj: proj, maxAbs: maxAbs,
 	}
 	copy(c.x, x0)
@@ -133,15 +134,8 @@ func (c *core) step(y []float64) error {
 		bad = s-s != 0
 	}
 	if bad { // checked before any limit: an infinite step must still fail
-		for i, yi := range y {
-			if math.IsNaN(yi) || math.IsInf(yi, 0) {
-				return &StepError{Step: c.steps, Err: fmt.Errorf("%w: Y[%d] = %v", ErrNotFinite, i, yi)}
-			}
-		}
-		for _, v := range next {
-			if math.IsNaN(v) || math.IsInf(v, 0) {
-				return &StepError{Step: c.steps, Err: fmt.Errorf("%w: x − a·Y overflows (a = %v)", ErrDiverged, a)}
-			}
+		if err := c.notFinite(y, next, a); err != nil {
+			return err
 		}
 	}
 	limited := false
@@ -173,7 +167,214 @@ func (c *core) step(y []float64) error {
 		}
 		advance = c.adapt.Advance(y, prev)
 	}
-	// Commit.
+	c.commit(next, a, y, active, limited, advance)
+	return nil
+}
+
+// notFinite returns the error of a step whose update next = x − a·y has a
+// non-finite entry: ErrNotFinite naming the first non-finite entry of y,
+// or else ErrDiverged (the update overflows). It returns nil when every
+// entry of next is finite.
+func (c *core) notFinite(y, next []float64, a float64) error {
+	for i, yi := range y {
+		if math.IsNaN(yi) || math.IsInf(yi, 0) {
+			return &StepError{Step: c.steps, Err: fmt.Errorf("%w: Y[%d] = %v", ErrNotFinite, i, yi)}
+		}
+	}
+	for _, v := range next {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return &StepError{Step: c.steps, Err: fmt.Errorf("%w: x − a·Y overflows (a = %v)", ErrDiverged, a)}
+		}
+	}
+	return nil
+}
+
+// fusable reports whether a step does nothing with its measurement Y but
+// form x − a·Y, check it for finiteness and commit it: no adaptive gain,
+// projection, step limit, MaxAbs or trace. Then a finite-sum oracle may
+// fuse its measurement with the update (descend).
+func (c *core) fusable() bool {
+	return c.adapt == nil && c.proj == nil && c.maxChange == nil && c.maxAbs == 0 && c.trace == nil
+}
+
+// descend is measure followed by step for a fusable core and a MiniBatch,
+// with the same draws and the same iterate, average and error bars bit for
+// bit, and the same errors (a measurement error returned as merr, a step
+// error as serr). When the MiniBatch hands out the gradient of its one
+// sample in factored form (oracle.MiniBatch.MeasureRankOne), the gradient
+// is never written out: stepRankOne applies it. y is scratch of length d.
+func (c *core) descend(g *oracle.MiniBatch, y []float64, rng *rand.Rand) (merr, serr error) {
+	ro, ok, err := g.MeasureRankOne(y, c.x, rng)
+	if err != nil {
+		return err, nil
+	}
+	if !ok {
+		return nil, c.step(y)
+	}
+	a := c.gainOf(c.gainIdx)
+	if !(a >= 0) || math.IsInf(a, 1) {
+		expandRankOne(y, c.x, &ro)
+		return nil, c.step(y) // which reports the gain
+	}
+	if len(y) >= vectorKernelMin {
+		return nil, c.stepRankOneLong(&ro, a, y)
+	}
+	return nil, c.stepRankOne(&ro, a, y)
+}
+
+// stepRankOne is step for a fusable core with the measurement Y in
+// factored form g (see oracle.RankOne) and a valid gain a, below
+// vectorKernelMin coordinates: the same operations in the same order, in
+// one pass over x that writes next = x − a·Y, checks it for finiteness
+// and, when inference is off and the iterate is averaged, also writes the
+// new average into the spare buffer (committed by swapping, so that a
+// failed step leaves the average as it was). y is scratch: it receives Y
+// only when the step fails, to say why.
+func (c *core) stepRankOne(g *oracle.RankOne, a float64, y []float64) error {
+	x := c.x
+	d := len(x)
+	next := c.next[:d]
+	fuseAvg := c.inf == nil && c.steps+1 > c.burnIn
+	var avg, avgNext []float64
+	var w float64
+	if fuseAvg {
+		avg, avgNext = c.avg[:d], c.avgNext[:d]
+		w = 1 / float64(c.nAvg+1)
+	}
+	if !rankOneUpdate(next, x, g, a, avgNext, avg, w) {
+		expandRankOne(y, x, g)
+		if err := c.notFinite(y, next, a); err != nil {
+			return err
+		}
+	}
+	if fuseAvg {
+		c.avg, c.avgNext = avgNext, avg
+		c.nAvg++ // counted here, not by advance
+	}
+	c.advance(next, x, a, fuseAvg)
+	return nil
+}
+
+// stepRankOneLong is stepRankOne from vectorKernelMin coordinates: Y is
+// written out into y and applied by gonum's kernels, which process two
+// values per instruction, with the operations of step.
+func (c *core) stepRankOneLong(g *oracle.RankOne, a float64, y []float64) error {
+	x := c.x
+	next := c.next[:len(x)]
+	expandRankOne(y, x, g)
+	floats.AddScaledTo(next, x, -a, y)
+	if s := floats.Sum(next); s-s != 0 {
+		if err := c.notFinite(y, next, a); err != nil {
+			return err
+		}
+	}
+	c.advance(next, x, a, false)
+	return nil
+}
+
+// advance is commit for the rank-one steps, whose core has no projection,
+// step limit, adaptive gain or trace (TestFusedMatchesPull checks that the
+// two leave the core alike): next becomes the iterate (x was the previous
+// one) and, unless averaged says the caller has already done so, it is
+// added to the average.
+func (c *core) advance(next, x []float64, a float64, averaged bool) {
+	c.x, c.next = next, x
+	c.active, c.limited = false, false
+	c.lastGain = a
+	c.gainIdx++
+	c.steps++
+	if !averaged && c.steps > c.burnIn {
+		c.average(next, x, a, false)
+	}
+}
+
+// rankOneUpdate writes next = x − a·Y for Y in factored form g, each
+// coordinate rounded as step rounds x_j − a·Y_j with Y_j rounded as
+// oracle.RankOne states, and, when avg is not nil, avgNext = avg +
+// (next − avg)·w (the averaging of commit). It reports whether every entry
+// of next is finite.
+func rankOneUpdate(next, x []float64, g *oracle.RankOne, a float64, avgNext, avg []float64, w float64) bool {
+	s, row, pen := g.Scale, g.Row, g.Penalty
+	bad := false
+	off := 0
+	if g.Intercept {
+		v := x[0] - a*(0+s)
+		next[0] = v
+		bad = v-v != 0 // NaN exactly when v is ±Inf or NaN
+		if avg != nil {
+			avgNext[0] = avg[0] + (v-avg[0])*w
+		}
+		off = 1
+	}
+	xb, nb := x[off:], next[off:]
+	xb, nb = xb[:len(row)], nb[:len(row)]
+	switch {
+	case avg == nil && pen == 0:
+		for j, r := range row {
+			v := xb[j] - a*(0+s*r)
+			nb[j] = v
+			if v-v != 0 { // a branch, not an accumulator: no chain of dependent adds
+				bad = true
+			}
+		}
+	case avg == nil:
+		for j, r := range row {
+			v := xb[j] - a*((0+s*r)+pen*xb[j])
+			nb[j] = v
+			if v-v != 0 {
+				bad = true
+			}
+		}
+	case pen == 0:
+		ab, anb := avg[off:], avgNext[off:]
+		ab, anb = ab[:len(row)], anb[:len(row)]
+		for j, r := range row {
+			v := xb[j] - a*(0+s*r)
+			nb[j] = v
+			if v-v != 0 {
+				bad = true
+			}
+			m := ab[j]
+			anb[j] = m + (v-m)*w
+		}
+	default:
+		ab, anb := avg[off:], avgNext[off:]
+		ab, anb = ab[:len(row)], anb[:len(row)]
+		for j, r := range row {
+			v := xb[j] - a*((0+s*r)+pen*xb[j])
+			nb[j] = v
+			if v-v != 0 {
+				bad = true
+			}
+			m := ab[j]
+			anb[j] = m + (v-m)*w
+		}
+	}
+	return !bad
+}
+
+// expandRankOne writes the measurement Y of g at x into y (see
+// oracle.RankOne), as Measure writes it: into zeros, the row scaled by
+// gonum's axpy kernel, then the penalty.
+func expandRankOne(y, x []float64, g *oracle.RankOne) {
+	clear(y)
+	off := 0
+	if g.Intercept {
+		y[0] += g.Scale
+		off = 1
+	}
+	floats.AddScaled(y[off:], g.Scale, g.Row)
+	if g.Penalty != 0 {
+		floats.AddScaled(y[off:], g.Penalty, x[off:])
+	}
+}
+
+// commit makes next (= x − a·y, checked, limited and projected) the
+// iterate and updates the counters, the average, the error bars and the
+// trace; y is the measurement (read only for an adaptive gain and the
+// trace). It cannot fail.
+func (c *core) commit(next []float64, a float64, y []float64, active, limited, advance bool) {
+	x := c.x
 	c.x, c.next = next, x
 	switch {
 	case active:
@@ -196,46 +397,7 @@ func (c *core) step(y []float64) error {
 	}
 	c.steps++
 	if c.steps > c.burnIn {
-		c.nAvg++
-		w := 1 / float64(c.nAvg)
-		avg := c.avg[:len(next)]
-		if b := c.inf; b != nil {
-			// The batch sums and the slope sums of the noise memory
-			// (batchMeans.noteSlope) ride in the averaging loop: one pass.
-			b.gain = a
-			sum, ref, sq := b.sum[:len(next)], b.ref[:len(next)], b.sq[:len(next)]
-			if a > 0 {
-				inv := 1 / a
-				s0, s1, prev := b.s0[:len(next)], b.s1[:len(next)], x[:len(next)]
-				for i, v := range next {
-					avg[i] += (v - avg[i]) * w
-					y := (v - prev[i]) * inv
-					s0[i] += y
-					s1[i] += y * (prev[i] - ref[i])
-					dv := v - ref[i]
-					sum[i] += dv
-					sq[i] += dv * dv
-				}
-			} else {
-				for i, v := range next {
-					avg[i] += (v - avg[i]) * w
-					dv := v - ref[i]
-					sum[i] += dv
-					sq[i] += dv * dv
-				}
-			}
-			if active {
-				b.projected++
-			}
-			b.tick(avg)
-			if c.rs != nil {
-				c.rs.add(avg)
-			}
-		} else {
-			for i, v := range next {
-				avg[i] += (v - avg[i]) * w
-			}
-		}
+		c.average(next, x, a, active)
 	}
 	if c.trace != nil {
 		c.lastNorm = floats.Norm(y, 2)
@@ -243,7 +405,60 @@ func (c *core) step(y []float64) error {
 			c.trace.record(c)
 		}
 	}
-	return nil
+}
+
+// average adds the new iterate next (x is the previous one, a the gain of
+// the step, active whether the projection put next where it is) to the
+// Polyak–Ruppert average and, with inference on, to the batch sums of the
+// error bars.
+func (c *core) average(next, x []float64, a float64, active bool) {
+	c.nAvg++
+	w := 1 / float64(c.nAvg)
+	avg := c.avg[:len(next)]
+	if b := c.inf; b != nil {
+		// The batch sums and the slope sums of the noise memory
+		// (batchMeans.noteSlope) ride in the averaging loop: one pass.
+		b.gain = a
+		sum, ref, sq := b.sum[:len(next)], b.ref[:len(next)], b.sq[:len(next)]
+		if a > 0 {
+			inv := 1 / a
+			s0, s1, prev := b.s0[:len(next)], b.s1[:len(next)], x[:len(next)]
+			for i, v := range next {
+				avg[i] += (v - avg[i]) * w
+				y := (v - prev[i]) * inv
+				s0[i] += y
+				s1[i] += y * (prev[i] - ref[i])
+				dv := v - ref[i]
+				sum[i] += dv
+				sq[i] += dv * dv
+			}
+		} else {
+			for i, v := range next {
+				avg[i] += (v - avg[i]) * w
+				dv := v - ref[i]
+				sum[i] += dv
+				sq[i] += dv * dv
+			}
+		}
+		if active {
+			b.projected++
+		}
+		b.tick(avg)
+		if c.rs != nil {
+			c.rs.add(avg)
+		}
+	} else if len(next) >= vectorKernelMin {
+		// avg + (next − avg)·w by gonum's kernels, the same
+		// operations: next + (−1)·avg = next − avg exactly, and
+		// avg + w·t = avg + t·w.
+		t := c.avgNext[:len(next)]
+		floats.AddScaledTo(t, next, -1, avg)
+		floats.AddScaled(avg, w, t)
+	} else {
+		for i, v := range next {
+			avg[i] += (v - avg[i]) * w
+		}
+	}
 }
 
 // configure switches on the inference, the precision stop and the trace

@@ -2,6 +2,7 @@ package sa
 
 import (
 	"context"
+	"fmt"
 	"math"
 	"math/rand/v2"
 
@@ -52,7 +53,21 @@ const streamSample uint64 = 0x5eed_0301
 // and never modified. g is held for the whole run (oracle.MiniBatch.Claim):
 // a second run started on the same g meanwhile fails at once with an error
 // wrapping oracle.ErrBusy. Give each concurrent run its own MiniBatch.
+//
+// Without a projection, MaxAbs, trace or adaptive gain, the steps take
+// their measurements with oracle.MiniBatch.MeasureRankOne, holding g
+// (oracle.MiniBatch.Hold) from the first to the last, so that a Measure
+// on g from another goroutine meanwhile fails with ErrBusy; an SGD step
+// (a batch of one sample of an *oracle.Regression) then applies the
+// gradient without writing it out. The Result is the same bit for bit as
+// with separate measurements and updates.
 func MinimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Settings) (Result, error) {
+	return minimizeSum(ctx, g, x0, s, true)
+}
+
+// minimizeSum is MinimizeSum; fuse false keeps it on the general pull loop
+// (runPullWith), against which the tests check the fused loop (runSum).
+func minimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Settings, fuse bool) (Result, error) {
 	r := Result{X: append([]float64(nil), x0...), Seed: s.Seed, Settings: s}
 	if g == nil {
 		return r, ErrNilOracle
@@ -110,9 +125,82 @@ func MinimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Setti
 	}
 	rng := rand.New(rand.NewPCG(rs.Seed, streamSample))
 	y := make([]float64, d)
-	err = runPullWith(ctx, c, g, y, rng, g.MeasurementsPerCall(), &r, lim)
+	if fuse && c.fusable() {
+		err = runSum(ctx, c, g, y, rng, &r, lim)
+	} else {
+		err = runPullWith(ctx, c, g, y, rng, g.MeasurementsPerCall(), &r, lim)
+	}
 	c.fill(&r)
 	noteAverage(&r)
 	r.Epochs = float64(r.Measurements) / float64(n)
 	return r, err
+}
+
+// runSum is runPullWith for a MiniBatch on a fusable core: the same stop
+// rules in the same order, with each measurement and its update taken by
+// core.descend (fused by the oracle) instead of measure and step. The
+// Result is the same bit for bit (TestFusedMatchesPull). A MiniBatch
+// leaves x alone, so there is nothing to restore after a failure.
+func runSum(ctx context.Context, c *core, g *oracle.MiniBatch, y []float64, rng *rand.Rand, r *Result, lim pullLimits) error {
+	perCall := g.MeasurementsPerCall()
+	maxSteps, maxMeas := r.Settings.MaxSteps, r.Settings.MaxMeasurements
+	c.configure(r.Settings, perCall)
+	held := false
+	defer func() {
+		if held {
+			g.Unhold()
+		}
+	}()
+	maxEpochMeas := lim.epochMeasurements
+	done := ctx.Done()
+	for {
+		if maxSteps != NoLimit && c.steps+lim.pilotSteps >= maxSteps {
+			r.Reason = StepLimit
+			return nil
+		}
+		if maxMeas > 0 && r.Measurements+perCall > maxMeas {
+			r.Reason = MeasurementLimit
+			return nil
+		}
+		if maxEpochMeas > 0 && r.Measurements+perCall > maxEpochMeas {
+			r.Reason = EpochLimit
+			return nil
+		}
+		if done != nil {
+			select {
+			case <-done:
+				r.Reason = Cancelled
+				return fmt.Errorf("sa: stopped before step %d: %w", c.steps, context.Cause(ctx))
+			default:
+			}
+		}
+		var merr, serr error
+		if !held {
+			// Held from the first measurement to the end of the run:
+			// another goroutine's Measure meanwhile fails with ErrBusy,
+			// and this one's fails the same way if it came first.
+			merr = g.Hold()
+			held = merr == nil
+		}
+		if held {
+			merr, serr = c.descend(g, y, rng)
+		}
+		r.Measurements += perCall
+		if merr != nil {
+			if ctx.Err() != nil {
+				r.Reason = Cancelled
+				return fmt.Errorf("sa: stopped during step %d: %w (measurement: %w)", c.steps, context.Cause(ctx), merr)
+			}
+			r.Reason = Failed
+			return &StepError{Step: c.steps, Err: fmt.Errorf("measurement: %w", merr)}
+		}
+		if serr != nil {
+			r.Reason = Failed
+			return serr
+		}
+		if c.precise() {
+			r.Reason = Precise
+			return nil
+		}
+	}
 }
