@@ -43,9 +43,9 @@ func fireTile(t float64, rng *rand.Rand) (float64, error) {
 
 func main() {
 	truth := centre + width*math.Log(target/(1-target))
-	gain := schedule.Power{Scale: 150, Exponent: 0.7}
+	gain := schedule.Power{Scale: 150, Exponent: 0.6}
 	fmt.Println("Kiln temperature for a 90% pass rate, from pass/fail test firings")
-	fmt.Printf("gain a_k = 150/(k+1)^0.7: %v\n\n", schedule.Check(gain))
+	fmt.Printf("gain a_k = 150/(k+1)^0.6: %v\n\n", schedule.Check(gain))
 	fmt.Printf("%10s  %14s  %14s  %14s  %10s\n", "firings", "last T (°C)", "averaged T", "95% interval", "error")
 	for _, budget := range []int{1000, 10000, 100000, 1000000} {
 		res, err := sa.RobbinsMonro(context.Background(), oracle.Scalar(fireTile), []float64{1150}, sa.Settings{
