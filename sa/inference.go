@@ -373,7 +373,7 @@ func newBatchMeans(d int, in Inference) *batchMeans {
 	b.skip, b.fixed = true, in.FixedBatches
 	b.nextEnd = b.end(0, 0)
 	if in.Method == MethodRandomScaling {
-		b.rs = newRandomScalingOf(d, b.full, in.Level)
+		b.rs = newRandomScalingBars(d, b.full, in.Level)
 	}
 	return b
 }

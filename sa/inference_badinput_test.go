@@ -128,8 +128,10 @@ func TestMaxBufferBytesBoundary(t *testing.T) {
 	if !errors.Is(err, sa.ErrSettings) || !strings.Contains(err.Error(), strconv.Itoa(need(d+1))) {
 		t.Errorf("d = %d: error %v, want ErrSettings with %d bytes", d+1, err, need(d+1))
 	}
-	// Random scaling (the default method) keeps another 2d + d² numbers.
-	needRS := func(d int) int { return need(d) + 8*(2*d+d*d) }
+	// Random scaling (the default method) keeps another 5d + d² numbers:
+	// its variances on the fine grid (3d) and the coarse full sum of its
+	// correlations (2d + d²).
+	needRS := func(d int) int { return need(d) + 8*(5*d+d*d) }
 	d = 1
 	for needRS(d+1) <= sa.MaxBufferBytes {
 		d++
