@@ -73,6 +73,16 @@ type core struct {
 	perCall    int            // measurements per step, for the trace
 	lastGain   float64        // a_k of the last applied update
 	lastNorm   float64        // ‖Y_k‖ of the last update (tracing only)
+
+	// The short path of step (stepShort), decided once by newCore.
+	// constGain: the gain is a valid schedule.Constant, whose value is
+	// constA. short: no adaptive gain, fewer than vectorKernelMin
+	// coordinates, and no projection or a Box of the right length, whose
+	// bounds are boxLo and boxHi (nil without a projection).
+	constGain    bool
+	constA       float64
+	short        bool
+	boxLo, boxHi []float64
 }
 
 // vectorKernelMin is the dimension from which step uses gonum's vector
@@ -97,6 +107,23 @@ func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, 
 		c.adapt = a
 		c.prev = make([]float64, d)
 	}
+	if g, ok := gain.(schedule.Constant); ok {
+		if a := float64(g); a >= 0 && !math.IsInf(a, 1) {
+			c.constGain, c.constA = true, a
+		}
+	}
+	c.short = c.adapt == nil && d < vectorKernelMin
+	switch p := proj.(type) {
+	case nil:
+	case Box:
+		if len(p.Lower) == d && len(p.Upper) == d {
+			c.boxLo, c.boxHi = p.Lower, p.Upper
+		} else {
+			c.short = false // Project panics, as it must
+		}
+	default:
+		c.short = false
+	}
 	return c
 }
 
@@ -106,10 +133,114 @@ func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, 
 // caller's gain, projection or adaptive Advance panics, since all of them
 // run before the commit.
 func (c *core) step(y []float64) error {
-	a := c.gainOf(c.gainIdx)
-	if !(a >= 0) || math.IsInf(a, 1) {
-		return &StepError{Step: c.steps, Err: fmt.Errorf("%w: a_%d = %v", ErrGain, c.gainIdx, a)}
+	var a float64
+	if c.constGain {
+		a = c.constA // valid: checked by newCore
+	} else {
+		a = c.gainOf(c.gainIdx)
+		if !(a >= 0) || math.IsInf(a, 1) {
+			return &StepError{Step: c.steps, Err: fmt.Errorf("%w: a_%d = %v", ErrGain, c.gainIdx, a)}
+		}
 	}
+	if c.short && c.trace == nil && c.stepShort(y, a) {
+		return nil
+	}
+	return c.stepGeneral(y, a)
+}
+
+// stepShort is step for a short vector (below vectorKernelMin coordinates)
+// with no adaptive gain and no trace, no projection or a Box, and the
+// valid gain a: the same operations on every coordinate as stepGeneral
+// (x − a·y, the finiteness check, the MaxChange clamp, the Box's clamp and
+// membership check, MaxAbs) and the same commit, in one pass that also
+// writes the new Polyak–Ruppert average into the spare buffer when
+// inference is off (committed by swapping, as stepRankOne does). It
+// reports false, having changed nothing but scratch, at the first
+// coordinate where stepGeneral would fail; the caller then runs
+// stepGeneral, which returns the error. TestStepShortMatchesGeneral checks
+// the two bit for bit.
+func (c *core) stepShort(y []float64, a float64) bool {
+	x := c.x
+	d := len(x)
+	next := c.next[:d]
+	y = y[:d]
+	m := c.maxChange
+	if m != nil {
+		m = m[:d]
+	}
+	lo, hi := c.boxLo, c.boxHi
+	box := lo != nil
+	if box {
+		lo, hi = lo[:d], hi[:d]
+	}
+	maxAbs := c.maxAbs
+	fuseAvg := c.inf == nil && c.steps >= c.burnIn // averaged, without batch sums
+	var avg, avgNext []float64
+	var w float64
+	if fuseAvg {
+		avg, avgNext = c.avg[:d], c.avgNext[:d]
+		w = 1 / float64(c.nAvg+1)
+	}
+	limited, active, same := false, false, true
+	for i, yi := range y {
+		xi := x[i]
+		v := xi - a*yi
+		if v-v != 0 { // NaN or ±Inf: stepGeneral says which
+			return false
+		}
+		if m != nil { // clampChange
+			if dv := v - xi; dv > m[i] {
+				v, limited = xi+m[i], true
+			} else if dv < -m[i] {
+				v, limited = xi-m[i], true
+			}
+		}
+		if box { // Box.Project, then checkProjected
+			if v < lo[i] {
+				v, active = lo[i], true
+			} else if v > hi[i] {
+				v, active = hi[i], true
+			}
+			if v-v != 0 || !(v >= lo[i] && v <= hi[i]) {
+				return false
+			}
+		}
+		if maxAbs > 0 && math.Abs(v) > maxAbs {
+			return false
+		}
+		next[i] = v
+		if v != xi { // slices.Equal(next, x) of commit
+			same = false
+		}
+		if fuseAvg {
+			mi := avg[i]
+			avgNext[i] = mi + (v-mi)*w
+		}
+	}
+	// commit, with advance = true (no adaptive gain) and no trace.
+	c.x, c.next = next, x
+	switch {
+	case active:
+		c.projected++
+	case c.active && same:
+		active = true
+	}
+	c.active = active
+	c.limited = limited
+	c.lastGain = a
+	c.gainIdx++
+	c.steps++
+	if fuseAvg {
+		c.avg, c.avgNext = avgNext, avg
+		c.nAvg++
+	} else if c.steps > c.burnIn {
+		c.average(next, x, a, active)
+	}
+	return true
+}
+
+// stepGeneral is step after the gain a (valid) has been evaluated.
+func (c *core) stepGeneral(y []float64, a float64) error {
 	x, next := c.x, c.next[:len(c.x)]
 	y = y[:len(x)]
 	// next = x − a·y, and a finiteness check of next. Long vectors
