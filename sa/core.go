@@ -116,10 +116,10 @@ func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, 
 	switch p := proj.(type) {
 	case nil:
 	case Box:
-		if len(p.Lower) == d && len(p.Upper) == d {
+		if len(p.Lower) == d && len(p.Upper) == d && p.validate(d) == nil {
 			c.boxLo, c.boxHi = p.Lower, p.Upper
 		} else {
-			c.short = false // Project panics, as it must
+			c.short = false // Project panics, or Contains may fail: stepGeneral
 		}
 	default:
 		c.short = false
@@ -151,8 +151,9 @@ func (c *core) step(y []float64) error {
 // stepShort is step for a short vector (below vectorKernelMin coordinates)
 // with no adaptive gain and no trace, no projection or a Box, and the
 // valid gain a: the same operations on every coordinate as stepGeneral
-// (x − a·y, the finiteness check, the MaxChange clamp, the Box's clamp and
-// membership check, MaxAbs) and the same commit, in one pass that also
+// (x − a·y, the finiteness check, the MaxChange clamp, the Box's clamp,
+// MaxAbs; the Box's membership check holds by construction) and the same
+// commit, in one pass that also
 // writes the new Polyak–Ruppert average into the spare buffer when
 // inference is off (committed by swapping, as stepRankOne does). It
 // reports false, having changed nothing but scratch, at the first
@@ -181,37 +182,46 @@ func (c *core) stepShort(y []float64, a float64) bool {
 		avg, avgNext = c.avg[:d], c.avgNext[:d]
 		w = 1 / float64(c.nAvg+1)
 	}
-	limited, active, same := false, false, true
+	limited, active := false, false
 	for i, yi := range y {
 		xi := x[i]
 		v := xi - a*yi
-		if v-v != 0 { // NaN or ±Inf: stepGeneral says which
-			return false
-		}
+		// stepGeneral fails if v is NaN or ±Inf. The check sits where v
+		// is replaced (the clamp and the projection, rare) and once at the
+		// end, where v is either as computed or a clamp of a finite v.
 		if m != nil { // clampChange
 			if dv := v - xi; dv > m[i] {
+				if v-v != 0 {
+					return false
+				}
 				v, limited = xi+m[i], true
 			} else if dv < -m[i] {
+				if v-v != 0 {
+					return false
+				}
 				v, limited = xi-m[i], true
 			}
 		}
-		if box { // Box.Project, then checkProjected
+		if box { // Box.Project; a projected finite v passes Contains (newCore checked Lower ≤ Upper)
 			if v < lo[i] {
+				if v-v != 0 {
+					return false
+				}
 				v, active = lo[i], true
 			} else if v > hi[i] {
+				if v-v != 0 {
+					return false
+				}
 				v, active = hi[i], true
 			}
-			if v-v != 0 || !(v >= lo[i] && v <= hi[i]) {
-				return false
-			}
+		}
+		if v-v != 0 { // not finite, or an overflowing clamp: stepGeneral decides
+			return false
 		}
 		if maxAbs > 0 && math.Abs(v) > maxAbs {
 			return false
 		}
 		next[i] = v
-		if v != xi { // slices.Equal(next, x) of commit
-			same = false
-		}
 		if fuseAvg {
 			mi := avg[i]
 			avgNext[i] = mi + (v-mi)*w
@@ -222,7 +232,7 @@ func (c *core) stepShort(y []float64, a float64) bool {
 	switch {
 	case active:
 		c.projected++
-	case c.active && same:
+	case c.active && slices.Equal(next, x):
 		active = true
 	}
 	c.active = active
