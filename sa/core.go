@@ -79,6 +79,7 @@ type core struct {
 	// constA. short: no adaptive gain, fewer than vectorKernelMin
 	// coordinates, and no projection or a Box of the right length, whose
 	// bounds are boxLo and boxHi (nil without a projection).
+	recip        reciprocal // 1/nAvg for average
 	constGain    bool
 	constA       float64
 	short        bool
@@ -152,45 +153,24 @@ func (c *core) step(y []float64) error {
 // with no adaptive gain and no trace, no projection or a Box, and the
 // valid gain a: the same operations on every coordinate as stepGeneral
 // (x − a·y, the finiteness check, the MaxChange clamp, the Box's clamp,
-// MaxAbs; the Box's membership check holds by construction) and the same
-// commit, in one pass that also
-// writes the new Polyak–Ruppert average into the spare buffer when
-// inference is off (committed by swapping, as stepRankOne does). It
-// reports false, having changed nothing but scratch, at the first
-// coordinate where stepGeneral would fail; the caller then runs
-// stepGeneral, which returns the error. TestStepShortMatchesGeneral checks
-// the two bit for bit.
+// MaxAbs; the Box's membership check holds by construction) in one pass,
+// then the same commit. It reports false, having changed nothing but
+// scratch, at the first coordinate where stepGeneral would fail; the
+// caller then runs stepGeneral, which returns the error.
+// TestStepShortMatchesGeneral checks the two bit for bit.
 func (c *core) stepShort(y []float64, a float64) bool {
 	x := c.x
 	d := len(x)
 	next := c.next[:d]
 	y = y[:d]
-	m := c.maxChange
-	if m != nil {
-		m = m[:d]
-	}
-	lo, hi := c.boxLo, c.boxHi
-	box := lo != nil
-	if box {
-		lo, hi = lo[:d], hi[:d]
-	}
-	maxAbs := c.maxAbs
-	fuseAvg := c.inf == nil && c.steps >= c.burnIn // averaged, without batch sums
-	var avg, avgNext []float64
-	var w float64
-	if fuseAvg {
-		avg, avgNext = c.avg[:d], c.avgNext[:d]
-		w = 1 / float64(c.nAvg+1)
-	}
 	limited, active := false, false
-	for i, yi := range y {
-		xi := x[i]
-		v := xi - a*yi
-		// stepGeneral fails if v is NaN or ±Inf. The check sits where v
-		// is replaced (the clamp and the projection, rare) and once at the
-		// end, where v is either as computed or a clamp of a finite v.
-		if m != nil { // clampChange
-			if dv := v - xi; dv > m[i] {
+	if m, lo, hi := c.maxChange, c.boxLo, c.boxHi; m != nil && lo != nil && c.maxAbs == 0 {
+		// A step limit and a Box (a tuner's settings): shortAny without
+		// the tests of what is set.
+		m, lo, hi = m[:d], lo[:d], hi[:d]
+		for i, xi := range x {
+			v := xi - a*y[i]
+			if dv := v - xi; dv > m[i] { // clampChange
 				if v-v != 0 {
 					return false
 				}
@@ -201,9 +181,7 @@ func (c *core) stepShort(y []float64, a float64) bool {
 				}
 				v, limited = xi-m[i], true
 			}
-		}
-		if box { // Box.Project; a projected finite v passes Contains (newCore checked Lower ≤ Upper)
-			if v < lo[i] {
+			if v < lo[i] { // Box.Project
 				if v-v != 0 {
 					return false
 				}
@@ -214,17 +192,15 @@ func (c *core) stepShort(y []float64, a float64) bool {
 				}
 				v, active = hi[i], true
 			}
+			if v-v != 0 {
+				return false
+			}
+			next[i] = v
 		}
-		if v-v != 0 { // not finite, or an overflowing clamp: stepGeneral decides
+	} else {
+		var ok bool
+		if ok, limited, active = c.shortAny(next, x, y, a); !ok {
 			return false
-		}
-		if maxAbs > 0 && math.Abs(v) > maxAbs {
-			return false
-		}
-		next[i] = v
-		if fuseAvg {
-			mi := avg[i]
-			avgNext[i] = mi + (v-mi)*w
 		}
 	}
 	// commit, with advance = true (no adaptive gain) and no trace.
@@ -240,13 +216,81 @@ func (c *core) stepShort(y []float64, a float64) bool {
 	c.lastGain = a
 	c.gainIdx++
 	c.steps++
-	if fuseAvg {
-		c.avg, c.avgNext = avgNext, avg
-		c.nAvg++
-	} else if c.steps > c.burnIn {
-		c.average(next, x, a, active)
+	if c.steps > c.burnIn {
+		if c.inf == nil { // average, inlined
+			c.nAvg++
+			w := c.recip.of(c.nAvg)
+			avg := c.avg[:d]
+			for i, v := range next {
+				avg[i] += (v - avg[i]) * w
+			}
+		} else {
+			c.average(next, x, a, active)
+		}
 	}
 	return true
+}
+
+// shortAny is the loop of stepShort for any of its settings: it writes
+// next = Π_Box(clamp_{±MaxChange}(x − a·y)) (either step left out when it
+// is not set) and reports whether stepGeneral would accept the step (ok),
+// and whether the clamp (limited) and the projection (active) moved a
+// coordinate. stepGeneral fails if x − a·y has a NaN or ±Inf entry: the
+// check sits where a value is replaced (the clamp and the projection,
+// rare) and once at the end, where v is either as computed or a clamp of
+// a finite value (which may overflow: then ok is false as well, and
+// stepGeneral decides). A Box's projection of a finite value passes its
+// Contains (newCore checked Lower ≤ Upper).
+func (c *core) shortAny(next, x, y []float64, a float64) (ok, limited, active bool) {
+	d := len(x)
+	m := c.maxChange
+	if m != nil {
+		m = m[:d]
+	}
+	lo, hi := c.boxLo, c.boxHi
+	box := lo != nil
+	if box {
+		lo, hi = lo[:d], hi[:d]
+	}
+	maxAbs := c.maxAbs
+	for i, yi := range y {
+		xi := x[i]
+		v := xi - a*yi
+		if m != nil {
+			if dv := v - xi; dv > m[i] {
+				if v-v != 0 {
+					return false, false, false
+				}
+				v, limited = xi+m[i], true
+			} else if dv < -m[i] {
+				if v-v != 0 {
+					return false, false, false
+				}
+				v, limited = xi-m[i], true
+			}
+		}
+		if box {
+			if v < lo[i] {
+				if v-v != 0 {
+					return false, false, false
+				}
+				v, active = lo[i], true
+			} else if v > hi[i] {
+				if v-v != 0 {
+					return false, false, false
+				}
+				v, active = hi[i], true
+			}
+		}
+		if v-v != 0 {
+			return false, false, false
+		}
+		if maxAbs > 0 && math.Abs(v) > maxAbs {
+			return false, false, false
+		}
+		next[i] = v
+	}
+	return true, limited, active
 }
 
 // stepGeneral is step after the gain a (valid) has been evaluated.
@@ -554,7 +598,7 @@ func (c *core) commit(next []float64, a float64, y []float64, active, limited, a
 // error bars.
 func (c *core) average(next, x []float64, a float64, active bool) {
 	c.nAvg++
-	w := 1 / float64(c.nAvg)
+	w := c.recip.of(c.nAvg)
 	avg := c.avg[:len(next)]
 	if b := c.inf; b != nil {
 		// The batch sums and the slope sums of the noise memory
@@ -824,4 +868,24 @@ func (c *core) checkProjected(x []float64) error {
 		return fmt.Errorf("%w: Π(x) is outside the projection's own set (Contains reports false)", ErrProjection)
 	}
 	return nil
+}
+
+// reciprocal returns 1/float64(n), computing the value for n+1 ahead: the
+// division (the longest instruction of a short step) then runs while the
+// caller does other work, and the next call finds its value ready. The
+// value is the same expression of n whenever it is computed, so results do
+// not depend on the cache.
+type reciprocal struct {
+	n    int     // the cached value is 1/float64(n)
+	next float64 // 1/float64(n)
+}
+
+// of returns 1/float64(n) and caches 1/float64(n+1).
+func (r *reciprocal) of(n int) float64 {
+	w := r.next
+	if r.n != n || n == 0 {
+		w = 1 / float64(n)
+	}
+	r.n, r.next = n+1, 1/float64(n+1)
+	return w
 }

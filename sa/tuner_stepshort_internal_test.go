@@ -219,3 +219,41 @@ func TestStepShortCovers(t *testing.T) {
 		t.Errorf("cases not reached: limited %d, projected %d, kept %d, errors %v", limited, active, kept, seen)
 	}
 }
+
+// TestReciprocal checks the cache of 1/n against the division, for
+// consecutive n, repeats, and jumps back and forward (an override or a
+// restore resets the count).
+func TestReciprocal(t *testing.T) {
+	var r reciprocal
+	for _, n := range []int{1, 2, 3, 3, 4, 1, 2, 7, 8, 9, 5, 6, 1 << 40, 1<<40 + 1} {
+		if got, want := r.of(n), 1/float64(n); math.Float64bits(got) != math.Float64bits(want) {
+			t.Errorf("of(%d) = %v, want %v", n, got, want)
+		}
+	}
+}
+
+// TestStepShortChosen checks which cores take the short path: not with a
+// Box the general path would refuse (wrong length, Lower > Upper), a Ball,
+// an adaptive gain or from vectorKernelMin coordinates.
+func TestStepShortChosen(t *testing.T) {
+	g := schedule.Constant(0.1)
+	x0 := []float64{0.5, 0.5}
+	cases := []struct {
+		name  string
+		c     *core
+		short bool
+	}{
+		{"no projection", newCore(x0, g, 0, nil, 0), true},
+		{"Box", newCore(x0, g, 0, Box{Lower: []float64{0, 0}, Upper: []float64{1, 1}}, 0), true},
+		{"Box of length 1", newCore(x0, g, 0, Box{Lower: []float64{0}, Upper: []float64{1}}, 0), false},
+		{"Box with Lower > Upper", newCore(x0, g, 0, Box{Lower: []float64{0, 2}, Upper: []float64{1, 1}}, 0), false},
+		{"Ball", newCore(x0, g, 0, Ball{Radius: 1}, 0), false},
+		{"adaptive gain", newCore(x0, schedule.Kesten{Base: schedule.Power{Scale: 1, Exponent: 0.7}}, 0, nil, 0), false},
+		{"d = vectorKernelMin", newCore(make([]float64, vectorKernelMin), g, 0, nil, 0), false},
+	}
+	for _, tc := range cases {
+		if tc.c.short != tc.short {
+			t.Errorf("%s: short = %v, want %v", tc.name, tc.c.short, tc.short)
+		}
+	}
+}
