@@ -167,19 +167,25 @@ func (c *core) stepShort(y []float64, a float64) bool {
 	if m, lo, hi := c.maxChange, c.boxLo, c.boxHi; m != nil && lo != nil && c.maxAbs == 0 {
 		// A step limit and a Box (a tuner's settings): shortAny without
 		// the tests of what is set.
+		// |dv| > m holds exactly when dv > m or dv < −m does (for m < 0
+		// both hold for every dv but NaN), so one comparison guards the
+		// clamp, which then decides as clampChange does. The finiteness
+		// of the kept values is summed (v − v is +0 for a finite v, NaN
+		// otherwise) and tested once after the loop.
 		m, lo, hi = m[:d], lo[:d], hi[:d]
+		bad := 0.0
 		for i, xi := range x {
 			v := xi - a*y[i]
-			if dv := v - xi; dv > m[i] { // clampChange
+			if dv := v - xi; math.Abs(dv) > m[i] { // clampChange
 				if v-v != 0 {
 					return false
 				}
-				v, limited = xi+m[i], true
-			} else if dv < -m[i] {
-				if v-v != 0 {
-					return false
+				if dv > m[i] {
+					v = xi + m[i]
+				} else {
+					v = xi - m[i]
 				}
-				v, limited = xi-m[i], true
+				limited = true
 			}
 			if v < lo[i] { // Box.Project
 				if v-v != 0 {
@@ -192,10 +198,11 @@ func (c *core) stepShort(y []float64, a float64) bool {
 				}
 				v, active = hi[i], true
 			}
-			if v-v != 0 {
-				return false
-			}
+			bad += v - v
 			next[i] = v
+		}
+		if bad != 0 {
+			return false
 		}
 	} else {
 		var ok bool
