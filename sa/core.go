@@ -79,7 +79,6 @@ type core struct {
 	// constA. short: no adaptive gain, fewer than vectorKernelMin
 	// coordinates, and no projection or a Box of the right length, whose
 	// bounds are boxLo and boxHi (nil without a projection).
-	recip        reciprocal // 1/nAvg for average
 	constGain    bool
 	constA       float64
 	short        bool
@@ -163,6 +162,13 @@ func (c *core) stepShort(y []float64, a float64) bool {
 	d := len(x)
 	next := c.next[:d]
 	y = y[:d]
+	// The averaging weight, 1/n as in average, is divided out before the
+	// loop, so that the division runs alongside it.
+	avgHere := c.inf == nil && c.steps >= c.burnIn
+	var w float64
+	if avgHere {
+		w = 1 / float64(c.nAvg+1)
+	}
 	limited, active := false, false
 	if m, lo, hi := c.maxChange, c.boxLo, c.boxHi; m != nil && lo != nil && c.maxAbs == 0 {
 		// A step limit and a Box (a tuner's settings): shortAny without
@@ -223,17 +229,14 @@ func (c *core) stepShort(y []float64, a float64) bool {
 	c.lastGain = a
 	c.gainIdx++
 	c.steps++
-	if c.steps > c.burnIn {
-		if c.inf == nil { // average, inlined
-			c.nAvg++
-			w := c.recip.of(c.nAvg)
-			avg := c.avg[:d]
-			for i, v := range next {
-				avg[i] += (v - avg[i]) * w
-			}
-		} else {
-			c.average(next, x, a, active)
+	if avgHere { // average, inlined
+		c.nAvg++
+		avg := c.avg[:d]
+		for i, v := range next {
+			avg[i] += (v - avg[i]) * w
 		}
+	} else if c.steps > c.burnIn {
+		c.average(next, x, a, active)
 	}
 	return true
 }
@@ -605,7 +608,7 @@ func (c *core) commit(next []float64, a float64, y []float64, active, limited, a
 // error bars.
 func (c *core) average(next, x []float64, a float64, active bool) {
 	c.nAvg++
-	w := c.recip.of(c.nAvg)
+	w := 1 / float64(c.nAvg)
 	avg := c.avg[:len(next)]
 	if b := c.inf; b != nil {
 		// The batch sums and the slope sums of the noise memory
@@ -875,24 +878,4 @@ func (c *core) checkProjected(x []float64) error {
 		return fmt.Errorf("%w: Π(x) is outside the projection's own set (Contains reports false)", ErrProjection)
 	}
 	return nil
-}
-
-// reciprocal returns 1/float64(n), computing the value for n+1 ahead: the
-// division (the longest instruction of a short step) then runs while the
-// caller does other work, and the next call finds its value ready. The
-// value is the same expression of n whenever it is computed, so results do
-// not depend on the cache.
-type reciprocal struct {
-	n    int     // the cached value is 1/float64(n)
-	next float64 // 1/float64(n)
-}
-
-// of returns 1/float64(n) and caches 1/float64(n+1).
-func (r *reciprocal) of(n int) float64 {
-	w := r.next
-	if r.n != n || n == 0 {
-		w = 1 / float64(n)
-	}
-	r.n, r.next = n+1, 1/float64(n+1)
-	return w
 }

@@ -220,18 +220,6 @@ func TestStepShortCovers(t *testing.T) {
 	}
 }
 
-// TestReciprocal checks the cache of 1/n against the division, for
-// consecutive n, repeats, and jumps back and forward (an override or a
-// restore resets the count).
-func TestReciprocal(t *testing.T) {
-	var r reciprocal
-	for _, n := range []int{1, 2, 3, 3, 4, 1, 2, 7, 8, 9, 5, 6, 1 << 40, 1<<40 + 1} {
-		if got, want := r.of(n), 1/float64(n); math.Float64bits(got) != math.Float64bits(want) {
-			t.Errorf("of(%d) = %v, want %v", n, got, want)
-		}
-	}
-}
-
 // TestStepShortChosen checks which cores take the short path: not with a
 // Box the general path would refuse (wrong length, Lower > Upper), a Ball,
 // an adaptive gain or from vectorKernelMin coordinates.
