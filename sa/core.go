@@ -73,6 +73,16 @@ type core struct {
 	perCall    int            // measurements per step, for the trace
 	lastGain   float64        // a_k of the last applied update
 	lastNorm   float64        // ‖Y_k‖ of the last update (tracing only)
+
+	// The short path of step (stepShort), decided once by newCore.
+	// constGain: the gain is a valid schedule.Constant, whose value is
+	// constA. short: no adaptive gain, fewer than vectorKernelMin
+	// coordinates, and no projection or a Box of the right length, whose
+	// bounds are boxLo and boxHi (nil without a projection).
+	constGain    bool
+	constA       float64
+	short        bool
+	boxLo, boxHi []float64
 }
 
 // vectorKernelMin is the dimension from which step uses gonum's vector
@@ -97,6 +107,23 @@ func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, 
 		c.adapt = a
 		c.prev = make([]float64, d)
 	}
+	if g, ok := gain.(schedule.Constant); ok {
+		if a := float64(g); a >= 0 && !math.IsInf(a, 1) {
+			c.constGain, c.constA = true, a
+		}
+	}
+	c.short = c.adapt == nil && d < vectorKernelMin
+	switch p := proj.(type) {
+	case nil:
+	case Box:
+		if len(p.Lower) == d && len(p.Upper) == d && p.validate(d) == nil {
+			c.boxLo, c.boxHi = p.Lower, p.Upper
+		} else {
+			c.short = false // Project panics, or Contains may fail: stepGeneral
+		}
+	default:
+		c.short = false
+	}
 	return c
 }
 
@@ -106,10 +133,178 @@ func newCore(x0 []float64, gain schedule.Schedule, burnIn int, proj Projection, 
 // caller's gain, projection or adaptive Advance panics, since all of them
 // run before the commit.
 func (c *core) step(y []float64) error {
-	a := c.gainOf(c.gainIdx)
-	if !(a >= 0) || math.IsInf(a, 1) {
-		return &StepError{Step: c.steps, Err: fmt.Errorf("%w: a_%d = %v", ErrGain, c.gainIdx, a)}
+	var a float64
+	if c.constGain {
+		a = c.constA // valid: checked by newCore
+	} else {
+		a = c.gainOf(c.gainIdx)
+		if !(a >= 0) || math.IsInf(a, 1) {
+			return &StepError{Step: c.steps, Err: fmt.Errorf("%w: a_%d = %v", ErrGain, c.gainIdx, a)}
+		}
 	}
+	if c.short && c.trace == nil && c.stepShort(y, a) {
+		return nil
+	}
+	return c.stepGeneral(y, a)
+}
+
+// stepShort is step for a short vector (below vectorKernelMin coordinates)
+// with no adaptive gain and no trace, no projection or a Box, and the
+// valid gain a: the same operations on every coordinate as stepGeneral
+// (x − a·y, the finiteness check, the MaxChange clamp, the Box's clamp,
+// MaxAbs; the Box's membership check holds by construction) in one pass,
+// then the same commit. It reports false, having changed nothing but
+// scratch, at the first coordinate where stepGeneral would fail; the
+// caller then runs stepGeneral, which returns the error.
+// TestStepShortMatchesGeneral checks the two bit for bit.
+func (c *core) stepShort(y []float64, a float64) bool {
+	x := c.x
+	d := len(x)
+	next := c.next[:d]
+	y = y[:d]
+	// The averaging weight, 1/n as in average, is divided out before the
+	// loop, so that the division runs alongside it.
+	avgHere := c.inf == nil && c.steps >= c.burnIn
+	var w float64
+	if avgHere {
+		w = 1 / float64(c.nAvg+1)
+	}
+	limited, active := false, false
+	if m, lo, hi := c.maxChange, c.boxLo, c.boxHi; m != nil && lo != nil && c.maxAbs == 0 {
+		// A step limit and a Box (a tuner's settings): shortAny without
+		// the tests of what is set.
+		// |dv| > m holds exactly when dv > m or dv < −m does (for m < 0
+		// both hold for every dv but NaN), so one comparison guards the
+		// clamp, which then decides as clampChange does. The finiteness
+		// of the kept values is summed (v − v is +0 for a finite v, NaN
+		// otherwise) and tested once after the loop.
+		m, lo, hi = m[:d], lo[:d], hi[:d]
+		bad := 0.0
+		for i, xi := range x {
+			v := xi - a*y[i]
+			if dv := v - xi; math.Abs(dv) > m[i] { // clampChange
+				if v-v != 0 {
+					return false
+				}
+				if dv > m[i] {
+					v = xi + m[i]
+				} else {
+					v = xi - m[i]
+				}
+				limited = true
+			}
+			if v < lo[i] { // Box.Project
+				if v-v != 0 {
+					return false
+				}
+				v, active = lo[i], true
+			} else if v > hi[i] {
+				if v-v != 0 {
+					return false
+				}
+				v, active = hi[i], true
+			}
+			bad += v - v
+			next[i] = v
+		}
+		if bad != 0 {
+			return false
+		}
+	} else {
+		var ok bool
+		if ok, limited, active = c.shortAny(next, x, y, a); !ok {
+			return false
+		}
+	}
+	// commit, with advance = true (no adaptive gain) and no trace.
+	c.x, c.next = next, x
+	switch {
+	case active:
+		c.projected++
+	case c.active && slices.Equal(next, x):
+		active = true
+	}
+	c.active = active
+	c.limited = limited
+	c.lastGain = a
+	c.gainIdx++
+	c.steps++
+	if avgHere { // average, inlined
+		c.nAvg++
+		avg := c.avg[:d]
+		for i, v := range next {
+			avg[i] += (v - avg[i]) * w
+		}
+	} else if c.steps > c.burnIn {
+		c.average(next, x, a, active)
+	}
+	return true
+}
+
+// shortAny is the loop of stepShort for any of its settings: it writes
+// next = Π_Box(clamp_{±MaxChange}(x − a·y)) (either step left out when it
+// is not set) and reports whether stepGeneral would accept the step (ok),
+// and whether the clamp (limited) and the projection (active) moved a
+// coordinate. stepGeneral fails if x − a·y has a NaN or ±Inf entry: the
+// check sits where a value is replaced (the clamp and the projection,
+// rare) and once at the end, where v is either as computed or a clamp of
+// a finite value (which may overflow: then ok is false as well, and
+// stepGeneral decides). A Box's projection of a finite value passes its
+// Contains (newCore checked Lower ≤ Upper).
+func (c *core) shortAny(next, x, y []float64, a float64) (ok, limited, active bool) {
+	d := len(x)
+	m := c.maxChange
+	if m != nil {
+		m = m[:d]
+	}
+	lo, hi := c.boxLo, c.boxHi
+	box := lo != nil
+	if box {
+		lo, hi = lo[:d], hi[:d]
+	}
+	maxAbs := c.maxAbs
+	for i, yi := range y {
+		xi := x[i]
+		v := xi - a*yi
+		if m != nil {
+			if dv := v - xi; dv > m[i] {
+				if v-v != 0 {
+					return false, false, false
+				}
+				v, limited = xi+m[i], true
+			} else if dv < -m[i] {
+				if v-v != 0 {
+					return false, false, false
+				}
+				v, limited = xi-m[i], true
+			}
+		}
+		if box {
+			if v < lo[i] {
+				if v-v != 0 {
+					return false, false, false
+				}
+				v, active = lo[i], true
+			} else if v > hi[i] {
+				if v-v != 0 {
+					return false, false, false
+				}
+				v, active = hi[i], true
+			}
+		}
+		if v-v != 0 {
+			return false, false, false
+		}
+		if maxAbs > 0 && math.Abs(v) > maxAbs {
+			return false, false, false
+		}
+		next[i] = v
+	}
+	return true, limited, active
+}
+
+// stepGeneral is step after the gain a (valid) has been evaluated.
+func (c *core) stepGeneral(y []float64, a float64) error {
 	x, next := c.x, c.next[:len(c.x)]
 	y = y[:len(x)]
 	// next = x − a·y, and a finiteness check of next. Long vectors
