@@ -143,7 +143,6 @@ func minimizeSum(ctx context.Context, g *oracle.MiniBatch, x0 []float64, s Setti
 // leaves x alone, so there is nothing to restore after a failure.
 func runSum(ctx context.Context, c *core, g *oracle.MiniBatch, y []float64, rng *rand.Rand, r *Result, lim pullLimits) error {
 	perCall := g.MeasurementsPerCall()
-	maxSteps, maxMeas := r.Settings.MaxSteps, r.Settings.MaxMeasurements
 	c.configure(r.Settings, perCall)
 	held := false
 	defer func() {
@@ -151,28 +150,10 @@ func runSum(ctx context.Context, c *core, g *oracle.MiniBatch, y []float64, rng 
 			g.Unhold()
 		}
 	}()
-	maxEpochMeas := lim.epochMeasurements
 	done := ctx.Done()
 	for {
-		if maxSteps != NoLimit && c.steps+lim.pilotSteps >= maxSteps {
-			r.Reason = StepLimit
-			return nil
-		}
-		if maxMeas > 0 && r.Measurements+perCall > maxMeas {
-			r.Reason = MeasurementLimit
-			return nil
-		}
-		if maxEpochMeas > 0 && r.Measurements+perCall > maxEpochMeas {
-			r.Reason = EpochLimit
-			return nil
-		}
-		if done != nil {
-			select {
-			case <-done:
-				r.Reason = Cancelled
-				return fmt.Errorf("sa: stopped before step %d: %w", c.steps, context.Cause(ctx))
-			default:
-			}
+		if stop, err := lim.stopBefore(ctx, done, c, r, perCall); stop {
+			return err
 		}
 		var merr, serr error
 		if !held {

@@ -262,32 +262,42 @@ type pullLimits struct {
 	pilotSteps int
 }
 
+// stopBefore applies the stop rules checked before every step of the pull
+// loops (runPullWith and the fused runSum): the step and measurement
+// budgets, the epoch budget in lim and cancellation (done is ctx.Done(),
+// read once per run). It reports whether the run stops, with r.Reason set
+// and the error to return.
+func (lim pullLimits) stopBefore(ctx context.Context, done <-chan struct{}, c *core, r *Result, perCall int) (bool, error) {
+	if ms := r.Settings.MaxSteps; ms != NoLimit && c.steps+lim.pilotSteps >= ms {
+		r.Reason = StepLimit
+		return true, nil
+	}
+	if mm := r.Settings.MaxMeasurements; mm > 0 && r.Measurements+perCall > mm {
+		r.Reason = MeasurementLimit
+		return true, nil
+	}
+	if me := lim.epochMeasurements; me > 0 && r.Measurements+perCall > me {
+		r.Reason = EpochLimit
+		return true, nil
+	}
+	if done != nil {
+		select {
+		case <-done:
+			r.Reason = Cancelled
+			return true, fmt.Errorf("sa: stopped before step %d: %w", c.steps, context.Cause(ctx))
+		default:
+		}
+	}
+	return false, nil
+}
+
 // runPullWith is runPull with the extra stop rules in lim.
 func runPullWith(ctx context.Context, c *core, h oracle.Field, y []float64, rng *rand.Rand, perCall int, r *Result, lim pullLimits) error {
-	maxSteps, maxMeas := r.Settings.MaxSteps, r.Settings.MaxMeasurements
 	c.configure(r.Settings, perCall)
-	maxEpochMeas := lim.epochMeasurements
 	done := ctx.Done()
 	for {
-		if maxSteps != NoLimit && c.steps+lim.pilotSteps >= maxSteps {
-			r.Reason = StepLimit
-			return nil
-		}
-		if maxMeas > 0 && r.Measurements+perCall > maxMeas {
-			r.Reason = MeasurementLimit
-			return nil
-		}
-		if maxEpochMeas > 0 && r.Measurements+perCall > maxEpochMeas {
-			r.Reason = EpochLimit
-			return nil
-		}
-		if done != nil {
-			select {
-			case <-done:
-				r.Reason = Cancelled
-				return fmt.Errorf("sa: stopped before step %d: %w", c.steps, context.Cause(ctx))
-			default:
-			}
+		if stop, err := lim.stopBefore(ctx, done, c, r, perCall); stop {
+			return err
 		}
 		err := c.measure(ctx, h, y, rng)
 		r.Measurements += perCall
