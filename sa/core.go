@@ -66,7 +66,6 @@ type core struct {
 	configured bool
 	infWhy     string         // why inf is nil, for the error bars' Why
 	plan       barsPlan       // what the driver knows about the noise (see barsPlan)
-	rs         *randomScaling // random-scaling error bars, when Inference.Method asks
 	inf        *batchMeans    // batch-means error bars of avg
 	prec       *Precision     // stop once the error bars are this tight
 	trace      *Trace         // every-k-th-step record
@@ -639,9 +638,6 @@ func (c *core) average(next, x []float64, a float64, active bool) {
 			b.projected++
 		}
 		b.tick(avg)
-		if c.rs != nil {
-			c.rs.add(avg)
-		}
 	} else if len(next) >= vectorKernelMin {
 		// avg + (next − avg)·w by gonum's kernels, the same
 		// operations: next + (−1)·avg = next − avg exactly, and
@@ -680,10 +676,7 @@ func (c *core) configure(s Settings, perCall int) {
 	case nothingAveraged:
 		c.infWhy = fmt.Sprintf("nothing is averaged: the burn-in (Settings.BurnIn = %d) covers the whole step budget (Settings.MaxSteps = %d)", s.BurnIn, s.MaxSteps)
 	default:
-		c.inf = newBatchMeans(d, s.Inference)
-		if s.Inference.Method == MethodRandomScaling {
-			c.rs = newRandomScaling(d, s.Inference.Level)
-		}
+		c.inf = newBatchMeans(d, s.Inference) // with its random-scaling sums when that is the method
 		c.prec = s.Precision
 	}
 	if s.Trace != nil {
@@ -713,8 +706,8 @@ func (c *core) fill(r *Result) {
 	r.Steps = c.steps
 	r.Active = c.active
 	switch {
-	case c.rs != nil && c.nAvg > 0:
-		r.ErrorBars = c.rs.errorBars(c.avg, c.inf.level, c.inf)
+	case c.inf != nil && c.inf.rs != nil && c.nAvg > 0:
+		r.ErrorBars = c.inf.rs.errorBars(c.avg, c.inf.level, c.inf)
 	case c.inf != nil && c.nAvg > 0:
 		r.ErrorBars = c.inf.errorBars(c.avg, c.nAvg)
 	case c.inf != nil:

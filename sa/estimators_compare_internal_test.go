@@ -262,11 +262,11 @@ func TestEstimatorComparison(t *testing.T) {
 					a.esum += avg - c.truth
 					nav := len(traj)
 					// RS raw
-					v := sv.c.rs.variance(0, sv.c.avg)
+					v := sv.c.inf.rs.variance(0, sv.c.avg)
 					h := 6.747 * math.Sqrt(v)
 					span := float64(nav) * sv.c.inf.gain * c.lambda / 2
 					a.spanSum += span
-					if sv.c.rs.available() {
+					if sv.c.inf.rs.available() {
 						for bi := range bucketN {
 							if span >= spanBuckets[bi] && span < spanBuckets[bi+1] {
 								bucketN[bi]++

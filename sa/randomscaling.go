@@ -148,14 +148,6 @@ type randomScaling struct {
 	q        float64
 }
 
-// newRandomScaling returns a diagonal accumulator. The core keeps one as
-// the mark that random scaling is the method; the accumulator whose bars
-// are reported is the one the batch-means estimator feeds (batchMeans.rs),
-// which keeps the full matrix when asked (see newBatchMeans).
-func newRandomScaling(d int, level float64) *randomScaling {
-	return newRandomScalingOf(d, false, level)
-}
-
 // newRandomScalingOf returns an accumulator on the fine grid, keeping the
 // full matrix when full is set.
 func newRandomScalingOf(d int, full bool, level float64) *randomScaling {
@@ -289,12 +281,10 @@ const randomScalingAssumes = "Random scaling (Lee, Liao, Seo & Shin 2022): the i
 	"more slowly than 1/k, the noise has finite variance and is independent from step to step given the past, and " +
 	"the path of the average satisfies a functional central limit theorem. It covers the random error only."
 
-// errorBars builds random-scaling error bars of avg (nAvg iterates); the
-// settledness verdict and the degenerate check come from bm.
+// errorBars builds random-scaling error bars of avg (nAvg iterates); rs is
+// bm.rs, and the settledness verdict and the degenerate check come from
+// bm.
 func (rs *randomScaling) errorBars(avg []float64, level float64, bm *batchMeans) ErrorBars {
-	if bm.rs != nil {
-		rs = bm.rs
-	}
 	e := ErrorBars{Level: level, Count: int(rs.s), Assumes: randomScalingAssumes, Method: MethodRandomScaling}
 	if !rs.available() {
 		e.Why = fmt.Sprintf("random scaling needs %d averaged iterates, %d so far", RandomScalingMinSteps, int(rs.s))
@@ -367,12 +357,9 @@ func (rs *randomScaling) errorBars(avg []float64, level float64, bm *batchMeans)
 // available, settled and meet the precision stop.
 func (c *core) preciseBars() bool {
 	b := c.inf
-	if c.rs == nil {
+	rs := b.rs
+	if rs == nil {
 		return b.available() && b.precise(c.prec, c.avg, c.nAvg)
-	}
-	rs := c.rs
-	if b.rs != nil {
-		rs = b.rs
 	}
 	if why, _ := b.refusal(); !rs.available() || b.memory() == 0 || why != "" {
 		return false

@@ -19,7 +19,7 @@ import (
 func TestRandomScalingDirect(t *testing.T) {
 	const n = 3000
 	rng := rand.New(rand.NewPCG(5, 6))
-	rs := newRandomScaling(2, 0.95)
+	rs := newRandomScalingOf(2, false, 0.95)
 	avg := make([]float64, 2)
 	var path [][2]float64
 	for s := 1; s <= n; s++ {

@@ -31,7 +31,6 @@ type tunerBars struct {
 	// for good (the estimators still run).
 	refused string
 	bm      *batchMeans
-	rs      *randomScaling
 	prev    []float64 // the iterate before the last step
 }
 
@@ -121,17 +120,13 @@ func (b *tunerBars) restored(n int) {
 // restart starts the estimators again for an average that restarts now.
 func (b *tunerBars) restart() {
 	b.why = ""
-	b.bm = newBatchMeans(b.d, b.in)
-	b.rs = nil
-	if b.in.Method == MethodRandomScaling {
-		b.rs = newRandomScaling(b.d, b.in.Level)
-	}
+	b.bm = newBatchMeans(b.d, b.in) // with its random-scaling sums (in.Method)
 }
 
 // stop withholds the bars with the reason why until the next restart.
 func (b *tunerBars) stop(why string) {
 	b.why = why
-	b.bm, b.rs = nil, nil
+	b.bm = nil
 }
 
 // before records the iterate before a step.
@@ -152,9 +147,6 @@ func (b *tunerBars) after(c *core, averaged, projected bool) {
 		b.bm.projected++
 	}
 	b.bm.add(c.x, b.prev, c.avg)
-	if b.rs != nil {
-		b.rs.add(c.avg)
-	}
 }
 
 // bars builds the error bars of the average avg of n iterates.
@@ -166,8 +158,8 @@ func (b *tunerBars) bars(avg []float64, n int) ErrorBars {
 		return ErrorBars{Level: b.in.Level, Method: b.in.Method, Why: b.why}
 	case n == 0:
 		return ErrorBars{Level: b.in.Level, Method: b.in.Method, Why: "no iterate has been averaged yet"}
-	case b.rs != nil:
-		return b.rs.errorBars(avg, b.in.Level, b.bm)
+	case b.bm.rs != nil:
+		return b.bm.rs.errorBars(avg, b.in.Level, b.bm)
 	}
 	return b.bm.errorBars(avg, n)
 }

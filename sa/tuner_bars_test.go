@@ -71,7 +71,7 @@ func rawBars(tu *Tuner) ErrorBars {
 	if b.bm == nil || tu.c.nAvg == 0 {
 		return ErrorBars{Why: b.why}
 	}
-	return b.rs.errorBars(tu.c.avg, b.in.Level, b.bm)
+	return b.bm.rs.errorBars(tu.c.avg, b.in.Level, b.bm)
 }
 
 // TestTunerErrorBarsCoverage measures the coverage of the tuner's nominal

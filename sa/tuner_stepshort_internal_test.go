@@ -124,7 +124,6 @@ func shortPair(t *testing.T, rng *rand.Rand, d int) (a, b *core, desc string) {
 				t.Fatal(err)
 			}
 			c.inf = newBatchMeans(d, in)
-			c.rs = newRandomScaling(d, in.Level)
 			c.configured = true
 		}
 		return c
