@@ -64,14 +64,14 @@ type core struct {
 
 	// Inference and tracing, switched on by configure; nil when off.
 	configured bool
-	infWhy     string         // why inf is nil, for the error bars' Why
-	plan       barsPlan       // what the driver knows about the noise (see barsPlan)
-	inf        *batchMeans    // batch-means error bars of avg
-	prec       *Precision     // stop once the error bars are this tight
-	trace      *Trace         // every-k-th-step record
-	perCall    int            // measurements per step, for the trace
-	lastGain   float64        // a_k of the last applied update
-	lastNorm   float64        // ‖Y_k‖ of the last update (tracing only)
+	infWhy     string      // why inf is nil, for the error bars' Why
+	plan       barsPlan    // what the driver knows about the noise (see barsPlan)
+	inf        *batchMeans // batch-means error bars of avg
+	prec       *Precision  // stop once the error bars are this tight
+	trace      *Trace      // every-k-th-step record
+	perCall    int         // measurements per step, for the trace
+	lastGain   float64     // a_k of the last applied update
+	lastNorm   float64     // ‖Y_k‖ of the last update (tracing only)
 
 	// The short path of step (stepShort), decided once by newCore.
 	// constGain: the gain is a valid schedule.Constant, whose value is

@@ -626,9 +626,6 @@ func (t *Tuner) Report(version uint64, y []float64) (Outcome, error) {
 	}
 	copy(t.ybuf, y)
 	bars := t.bars.bm != nil
-	if bars {
-		t.bars.before(t.c)
-	}
 	nAvg, projected := t.c.nAvg, t.c.projected
 	if err := t.step(); err != nil {
 		if errors.Is(err, ErrNotFinite) {

@@ -31,7 +31,6 @@ type tunerBars struct {
 	// for good (the estimators still run).
 	refused string
 	bm      *batchMeans
-	prev    []float64 // the iterate before the last step
 }
 
 // learnedBarsRefused is why a tuner with a decreasing learned gain
@@ -73,7 +72,7 @@ func newTunerBars(d int, s TunerSettings, learned bool) (*tunerBars, error) {
 	if err != nil {
 		return nil, fmt.Errorf("TunerSettings.%w", err)
 	}
-	b := &tunerBars{d: d, in: in, prev: make([]float64, d)}
+	b := &tunerBars{d: d, in: in}
 	switch {
 	case !in.on():
 		b.why = "inference is off (TunerSettings.Inference.Covariance = CovarianceOff)"
@@ -129,13 +128,6 @@ func (b *tunerBars) stop(why string) {
 	b.bm = nil
 }
 
-// before records the iterate before a step.
-func (b *tunerBars) before(c *core) {
-	if b.bm != nil {
-		copy(b.prev, c.x)
-	}
-}
-
 // after feeds the iterate of a step just applied (projected tells whether
 // the projection moved it) when it entered the average.
 func (b *tunerBars) after(c *core, averaged, projected bool) {
@@ -146,7 +138,7 @@ func (b *tunerBars) after(c *core, averaged, projected bool) {
 	if projected {
 		b.bm.projected++
 	}
-	b.bm.add(c.x, b.prev, c.avg)
+	b.bm.add(c.x, c.next, c.avg) // a step leaves the previous iterate in c.next
 }
 
 // bars builds the error bars of the average avg of n iterates.
